@@ -1,0 +1,39 @@
+/* Shared pieces of the command-line program (not part of the library). */
+#ifndef ND_CLI_H
+#define ND_CLI_H
+
+#include "nadir.h"
+
+/* Exit codes of the nadir program (documented in `nadir --help` and README). */
+enum {
+    ND_EXIT_OK = 0,       /* everything asked for was done */
+    ND_EXIT_INTERNAL = 1, /* out of memory or an internal error */
+    ND_EXIT_USAGE = 2,    /* bad command line */
+    ND_EXIT_INPUT = 3,    /* unreadable or invalid input; nothing usable was produced */
+    ND_EXIT_COMPUTE = 4,  /* a computation failed (did not converge, non-finite values) */
+    ND_EXIT_PARTIAL = 5   /* finished, but some records failed and were reported */
+};
+
+#define COMMAND(word, fn, summary) int fn(int argc, char **argv);
+#include "cli/commands.h"
+#undef COMMAND
+
+/* Maps a library status to an exit code. */
+int cli_exit_code(int status);
+
+/* Prints "nadir COMMAND: message" to stderr and returns the exit code for
+ * status, for `return cli_fail(...)` in commands. */
+int cli_fail(const char *command, int status, const char *fmt, ...)
+    __attribute__((format(printf, 3, 4)));
+
+/* Prints an error record as "nadir COMMAND: message" and returns its exit code. */
+int cli_error(const char *command, const nd_error *err);
+
+/* Usage error: prints the message and a pointer to --help; returns ND_EXIT_USAGE. */
+int cli_usage(const char *command, const char *fmt, ...) __attribute__((format(printf, 2, 3)));
+
+/* Parses a whole string as a number; 0 on success, -1 if it is not one. */
+int cli_parse_double(const char *s, double *out);
+int cli_parse_int(const char *s, int *out);
+
+#endif
