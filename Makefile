@@ -40,7 +40,7 @@ modlib = $(foreach d,$(DEPS_$(1)),$(BUILD)/lib$(d).a)
 
 UNIT_SRC  = $(wildcard tests/unit/*/test_*.c)
 UNIT_BIN  = $(patsubst tests/unit/%.c,$(BUILD)/tests/%,$(UNIT_SRC))
-TESTLIB   = $(BUILD)/obj/tests/lib/testutil.o
+TESTLIB   = $(patsubst %.c,$(BUILD)/obj/%.o,$(wildcard tests/lib/*.c))
 
 .PHONY: all deps test tests unit demo bench fuzz install clean check-deps dataset
 .DEFAULT_GOAL := all
@@ -99,8 +99,17 @@ test: deps
 demo: all
 	@examples/run-demo.sh $(BUILD)/nadir
 
+BENCH_SRC = $(wildcard bench/bench_*.c)
+BENCH_BIN = $(patsubst bench/%.c,$(BUILD)/bench/%,$(BENCH_SRC))
+$(BUILD)/bench/%: bench/%.c $(TESTLIB) $(BUILD)/libnadir.a
+	@mkdir -p $(dir $@)
+	@echo "  BENCH   $@"
+	@$(CC) $(CFLAGS) $(shell pkg-config --cflags cmocka) -o $@ $< $(TESTLIB) $(LDFLAGS) $(BUILD)/libnadir.a $(LDLIBS)
+
+# One benchmark only: make bench B=bench_potential
 bench: all
-	@bench/run.sh $(BUILD)
+	@$(MAKE) --no-print-directory $(if $(B),$(BUILD)/bench/$(B),$(BENCH_BIN))
+	@bench/run.sh $(BUILD) $(B)
 
 fuzz: deps
 	@tests/fuzz/run.sh
