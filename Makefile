@@ -35,7 +35,7 @@ CLI_OBJ  = $(patsubst %.c,$(BUILD)/obj/%.o,$(CLI_SRC))
 DEPS_core       := core
 DEPS_potential  := potential core
 DEPS_optimize   := optimize core
-DEPS_conformers := conformers optimize potential core
+DEPS_conformers := conformers optimize core
 modlib = $(foreach d,$(DEPS_$(1)),$(BUILD)/lib$(d).a)
 
 UNIT_SRC  = $(wildcard tests/unit/*/test_*.c)
