@@ -104,7 +104,7 @@ BENCH_BIN = $(patsubst bench/%.c,$(BUILD)/bench/%,$(BENCH_SRC))
 $(BUILD)/bench/%: bench/%.c $(TESTLIB) $(BUILD)/libnadir.a
 	@mkdir -p $(dir $@)
 	@echo "  BENCH   $@"
-	@$(CC) $(CFLAGS) $(shell pkg-config --cflags cmocka) -o $@ $< $(TESTLIB) $(LDFLAGS) $(BUILD)/libnadir.a $(LDLIBS)
+	@$(CC) $(CFLAGS) $(shell pkg-config --cflags cmocka) -o $@ $< $(TESTLIB) $(LDFLAGS) $(BUILD)/libnadir.a $(LDLIBS) $(shell pkg-config --libs cmocka)
 
 # One benchmark only: make bench B=bench_potential
 bench: all

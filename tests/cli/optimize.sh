@@ -1,0 +1,114 @@
+#!/bin/bash
+# nadir optimize end to end, with an analytic potential as an external
+# program (tests/cli/morse_potential.py: Morse pairs, r_e = 1.213 A, so a
+# diatomic's answer is known exactly) and a random-weight model for the
+# domain check. Usage errors, convergence, frozen atoms, not converged,
+# torsion scan, trajectory, data items, thread-count independence.
+cd "$(dirname "$0")/../.." || exit 1
+. tests/lib/tap.sh
+T="$TAP_TMP"
+POT="$PWD/tests/cli/morse_potential.py"
+
+check "--help exits 0" "$NADIR" optimize --help
+grep -q "^examples:" "$T/out" && ok "--help shows examples on stdout" || not_ok "--help shows examples"
+check_fails "no input: usage error" 2 "no input file given" "$NADIR" optimize
+check_fails "unknown method" 2 "unknown method 'newton'" "$NADIR" optimize x.xyz --method newton
+check_fails "unknown preset" 2 "unknown convergence preset 'loose'" "$NADIR" optimize x.xyz --convergence loose
+check_fails "bad --scan" 2 "--scan needs four atom numbers" "$NADIR" optimize x.xyz --scan 1,2,3
+check_fails "bad --scan-range" 2 "--scan-range needs FROM,TO,STEP" "$NADIR" optimize x.xyz --scan-range 10,0,5
+check_fails "bad --max-force" 2 "--max-force needs a positive number" "$NADIR" optimize x.xyz --max-force -1
+check_fails "two potentials" 2 "give one potential" "$NADIR" optimize x.xyz --model a --potential-command b
+check_fails "missing input file" 3 "x.xyz" "$NADIR" optimize x.xyz --potential-command "$POT"
+
+printf '2\npair\nH 0.1 0.2 0.3\nH 1.6 0.5 0.1\n' > "$T/d.xyz"
+for m in lbfgs fire; do
+  check "diatomic with $m" "$NADIR" optimize "$T/d.xyz" --potential-command "$POT" --method $m \
+    --max-force 1e-4 -o "$T/d-$m.xyz" --report "$T/d-$m.json"
+  if /usr/bin/python3 - "$T/d-$m.xyz" "$T/d-$m.json" <<'PY'
+import json, math, sys
+l = open(sys.argv[1]).read().split("\n")
+a = [float(v) for v in l[2].split()[1:]]; b = [float(v) for v in l[3].split()[1:]]
+r = math.dist(a, b)
+# k = 2 D a^2 = 177 kcal/mol/A^2: a residual force 1e-4 leaves |r - r_e| < 1e-6
+assert abs(r - 1.213) < 1e-5, r
+rep = json.load(open(sys.argv[2]))
+rec = rep["records"][0]
+# FIRE may stop on the energy change (forces then below 5 x 1e-4)
+assert rec["converged"] is True and rec["stopped_by"] in ("force", "energy change"), rec
+assert rec["max_force"] <= (1e-4 if rec["stopped_by"] == "force" else 5e-4)
+assert rec["force_calls"] >= rec["steps"] + 1
+assert rep["converged"] == 1 and rep["not_converged"] == 0 and rep["failed"] == 0
+assert abs(rec["energy"]) < 1e-9 and rec["initial_energy"] > 1
+PY
+  then ok "$m reaches r_e = 1.213 A; report says converged and why"; else not_ok "$m reaches r_e"; fi
+done
+
+cat > "$T/t.xyz" <<'XYZ'
+4
+chain
+H  0.0000  0.0000  0.0000
+H  1.3000  0.1000  0.0500
+H  1.9000  1.2500 -0.1000
+H  3.1000  1.4000  0.9000
+XYZ
+check "frozen atoms, SD output" "$NADIR" optimize "$T/t.xyz" --potential-command "$POT" --frozen 1,3 -o "$T/f.sdf" --report "$T/f.json"
+if /usr/bin/python3 - "$T/t.xyz" "$T/f.sdf" "$T/f.json" <<'PY'
+import json, sys
+inp = [[float(v) for v in l.split()[1:]] for l in open(sys.argv[1]).read().split("\n")[2:6]]
+sdf = open(sys.argv[2]).read().split("\n")
+out = [[float(v) for v in l.split()[:3]] for l in sdf[4:8]]
+for i in (0, 2):  # frozen atoms 1 and 3 (1-based) keep their coordinates (SD: 4 decimals)
+    assert all(abs(p - q) < 5e-5 for p, q in zip(inp[i], out[i])), (inp[i], out[i])
+assert any(abs(p - q) > 1e-3 for p, q in zip(inp[1], out[1]))
+text = "\n".join(sdf)
+assert "> <optimize_energy>" in text and "> <optimize_status>" in text and "converged (force)" in text
+assert json.load(open(sys.argv[3]))["records"][0]["frozen_atoms"] == 2
+PY
+then ok "frozen atoms stay; data items written"; else not_ok "frozen atoms stay; data items written"; fi
+
+check_fails "step limit: not converged" 4 "not converged: step limit of 2 reached" \
+  "$NADIR" optimize "$T/t.xyz" --potential-command "$POT" --max-steps 2 --report "$T/n.json"
+if /usr/bin/python3 -c "
+import json; r = json.load(open('$T/n.json'))['records'][0]
+assert r['converged'] is False and r['stopped_by'] == 'step limit' and r['steps'] == 2" ; then
+  ok "report says not converged (step limit)"; else not_ok "report says not converged (step limit)"; fi
+grep -q "NOT CONVERGED" "$T/out" && ok "table says NOT CONVERGED" || not_ok "table says NOT CONVERGED"
+
+check "torsion scan" "$NADIR" optimize "$T/t.xyz" --potential-command "$POT" --scan 1,2,3,4 \
+  --scan-range -90,90,45 -o "$T/s.xyz" --report "$T/s.json" --trajectory "$T/s-traj.xyz"
+if /usr/bin/python3 - "$T/s.json" "$T/s.xyz" "$T/s-traj.xyz" <<'PY'
+import json, sys
+rep = json.load(open(sys.argv[1]))
+rec = rep["records"][0]
+pts = rec["scan"]["points"]
+assert [p["target"] for p in pts] == [-90, -45, 0, 45, 90], pts
+for p in pts:
+    assert p["converged"] and abs(p["torsion"] - p["target"]) < 1.0, p
+assert min(p["relative_energy"] for p in pts) == 0
+# a potential of distances only: the profile is symmetric in the torsion
+e = [p["energy"] for p in pts]
+assert abs(e[0] - e[4]) < 1e-3 and abs(e[1] - e[3]) < 1e-3, e
+assert open(sys.argv[2]).read().count("torsion") == 5  # one output record per angle
+frames = open(sys.argv[3]).read().count("frame")
+assert frames == sum(p["steps"] + 1 for p in pts), (frames, [p["steps"] for p in pts])
+PY
+then ok "scan holds each angle; symmetric profile; records and frames"; else not_ok "scan holds each angle"; fi
+
+check_fails "scan atom out of range" 3 "--scan 1,2,3,9: restraints: atom 9 is out of range (1..4)" \
+  "$NADIR" optimize "$T/t.xyz" --potential-command "$POT" --scan 1,2,3,9
+check_fails "frozen atom out of range" 3 "--frozen '1,7': atoms 7-7 outside 1..4" \
+  "$NADIR" optimize "$T/t.xyz" --potential-command "$POT" --frozen 1,7
+
+cat "$T/t.xyz" "$T/d.xyz" "$T/t.xyz" > "$T/three.xyz"
+OMP_NUM_THREADS=1 "$NADIR" optimize "$T/three.xyz" --potential-command "$POT" -o "$T/one.xyz" >/dev/null 2>&1
+OMP_NUM_THREADS=2 "$NADIR" optimize "$T/three.xyz" --potential-command "$POT" -o "$T/two.xyz" >/dev/null 2>&1
+if cmp -s "$T/one.xyz" "$T/two.xyz" && [ "$(grep -c chain "$T/two.xyz")" = 2 ]; then
+  ok "same output with 1 and 2 threads, records in order"; else not_ok "same output with 1 and 2 threads"; fi
+
+check "writes a random test model" "$NADIR" energy --make-random-model "$T/r.model" --elements H,C,O --seed 3
+printf '2\nbromine\nC 0 0 0\nBr 1.9 0 0\n' > "$T/br.xyz"
+cat "$T/br.xyz" "$T/d.xyz" > "$T/mix.xyz"
+check_fails "element outside the model" 3 "record 1: atom 2 (Br)" "$NADIR" optimize "$T/br.xyz" --model "$T/r.model"
+check_fails "one bad record of two" 5 "1 record converged, 0 not converged, 1 failed" \
+  "$NADIR" optimize "$T/mix.xyz" --model "$T/r.model"
+finish
