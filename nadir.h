@@ -15,11 +15,36 @@
 #include "core/rng.h"
 #include "core/energy.h"
 #include "core/format.h"
+#include "core/smiles.h"
+#include "core/report.h"
+#include "core/progress.h"
 
 /* potential */
+#include "potential/descriptor.h"
+#include "potential/model.h"
+#include "potential/potential.h"
+#include "potential/ensemble.h"
+#include "potential/dataset.h"
+#include "potential/external.h"
+#include "potential/train.h"
+#include "potential/evaluate.h"
 
 /* optimize */
+#include "optimize/converge.h"
+#include "optimize/precondition.h"
+#include "optimize/minimize.h"
+#include "optimize/restrain.h"
+#include "optimize/hessian.h"
+#include "optimize/modes.h"
+#include "optimize/symmetry.h"
+#include "optimize/thermo.h"
+#include "optimize/repair.h"
 
 /* conformers */
+#include "conformers/topology.h"
+#include "conformers/embed.h"
+#include "conformers/verify.h"
+#include "conformers/sample.h"
+#include "conformers/search.h"
 
 #endif

@@ -8,6 +8,8 @@
 
 #include "core/molecule.h"
 
+#include <stddef.h>
+
 typedef enum nd_format {
     ND_FORMAT_AUTO = 0, /* from the file name's extension, checked against the content */
     ND_FORMAT_XYZ,
@@ -32,14 +34,26 @@ typedef struct nd_reader nd_reader;
  * from its content. *out is freed with nd_reader_close. */
 int nd_reader_open(nd_reader **out, const char *path, nd_format fmt, nd_error *err);
 
+/* Opens a reader over size bytes at data (not copied: they must outlive the
+ * reader). name is used in messages and, with ND_FORMAT_AUTO, its extension
+ * picks the format as for a file; a name without one means the content is
+ * sniffed. For tests, fuzzers and embedding programs. */
+int nd_reader_open_memory(nd_reader **out, const char *name, const void *data, size_t size,
+                          nd_format fmt, nd_error *err);
+
 /* Reads the next record into mol (cleared first). Returns ND_OK, ND_END when
  * the input is exhausted, or an error naming the file, record and line. After
  * an ND_EINPUT error the reader has skipped to the start of the next record,
- * so the caller may go on; after other errors it may not. */
+ * so the caller may go on; after other errors it may not. An input with no
+ * record at all gives one ND_EINPUT ("no records") and then ND_END, so an
+ * empty file is never mistaken for an empty result. */
 int nd_reader_next(nd_reader *r, nd_molecule *mol, nd_error *err);
 
 /* 1-based number of the record last returned (or failed). */
 int nd_reader_record(const nd_reader *r);
+
+/* Name of the input as used in messages ("stdin" for "-"). Owned by r. */
+const char *nd_reader_name(const nd_reader *r);
 
 /* Format actually being read. */
 nd_format nd_reader_format(const nd_reader *r);

@@ -131,12 +131,14 @@ int nd_test_rosenbrock_energy(void *ctx, int n, const double *x, double *energy,
 int nd_test_faulty_energy(void *ctx, int n, const double *x, double *energy, double *g)
 {
     nd_test_faulty *p = ctx;
-    p->calls++;
+    int call; /* this call's number, counted atomically: Hessians call in parallel */
+#pragma omp atomic capture
+    call = ++p->calls;
     int s = p->inner.fn(p->inner.ctx, n, x, energy, g);
-    if (s == ND_OK && p->mode == 4 && p->calls >= p->fail_at && g)
+    if (s == ND_OK && p->mode == 4 && call >= p->fail_at && g)
         for (int i = 0; i < 3 * n; i++)
             g[i] = -g[i];
-    if (s != ND_OK || p->calls != p->fail_at || p->mode == 4)
+    if (s != ND_OK || call != p->fail_at || p->mode == 4)
         return s;
     switch (p->mode) {
     case 0: return ND_ECOMPUTE;

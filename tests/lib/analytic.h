@@ -71,8 +71,9 @@ int nd_test_bonded_energy(void *ctx, int n, const double *x, double *energy, dou
  * (1-based): mode 0 returns ND_ECOMPUTE, 1 a NaN energy, 2 a NaN gradient
  * on atom 2 (index 1), 3 returns ND_EDOMAIN; mode 4 instead returns the
  * gradient with its sign flipped from that call on (a potential whose
- * gradient contradicts its energy, to make a line search fail). Counts calls in `calls`; not
- * thread-safe (tests only). */
+ * gradient contradicts its energy, to make a line search fail). Counts calls in `calls`
+ * atomically; which call is the fail_at-th depends on thread scheduling when
+ * called in parallel (tests only). */
 typedef struct nd_test_faulty {
     nd_energy inner;
     int fail_at, mode, calls;
