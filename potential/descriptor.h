@@ -1,0 +1,105 @@
+/* Behler-Parrinello atom-centred symmetry functions (J. Behler and
+ * M. Parrinello, Phys. Rev. Lett. 98, 146401, 2007; J. Behler, J. Chem.
+ * Phys. 134, 074106, 2011), with analytic derivatives.
+ *
+ * For a centre atom i with neighbours j, k (r_ij = |x_j - x_i|):
+ *
+ *   radial,  per neighbour element Z and Gaussian m:
+ *     G[Z, m] = sum_{j in Z} exp(-eta_m (r_ij - s_m)^2) fc_r(r_ij)
+ *   angular, per unordered neighbour element pair (Z1 <= Z2) and set n:
+ *     G[(Z1,Z2), n] = 2^(1 - zeta_n) sum_{j<k} (1 + lambda_n cos theta_ijk)^zeta_n
+ *                     exp(-eta_n (r_ij^2 + r_ik^2)) fc_a(r_ij) fc_a(r_ik)
+ *     (the "no r_jk" angular form, G5 in Behler 2011; zeta is a positive integer)
+ *
+ * Cutoff (ours, a quintic smoothstep): with t = r / rc,
+ *     fc(r) = (1 - t)^3 (1 + 3t + 6t^2) = 1 - 10t^3 + 15t^4 - 6t^5   (r < rc), 0 beyond,
+ * so fc, fc' and fc'' are all zero at rc (and fc = 1, fc' = fc'' = 0 at r = 0).
+ *
+ * Feature layout for a model of nel elements (element slots 0..nel-1 in the
+ * model's order): first nel * nradial radial features (slot-major), then
+ * npair * nangular angular features, pair (a <= b) numbered
+ * a*nel - a*(a-1)/2 + (b - a). */
+#ifndef ND_DESCRIPTOR_H
+#define ND_DESCRIPTOR_H
+
+#include "core/status.h"
+
+#include <stddef.h>
+
+#define ND_DESC_MAX_RADIAL 32
+#define ND_DESC_MAX_ANGULAR 16
+#define ND_DESC_MAX_ZETA 64
+#define ND_DESC_MAX_ELEMENTS 16 /* = ND_MODEL_MAX_ELEMENTS */
+
+/* Descriptor parameters: plain data, stored in the model file. */
+typedef struct nd_descriptor_params {
+    double radial_cutoff;                    /* angstrom */
+    int nradial;                             /* Gaussians per neighbour element */
+    double radial_eta[ND_DESC_MAX_RADIAL];   /* angstrom^-2 */
+    double radial_shift[ND_DESC_MAX_RADIAL]; /* angstrom */
+    double angular_cutoff;                   /* angstrom, <= radial_cutoff */
+    int nangular;                            /* sets per neighbour element pair */
+    double angular_eta[ND_DESC_MAX_ANGULAR]; /* angstrom^-2 */
+    int angular_zeta[ND_DESC_MAX_ANGULAR];   /* 1 .. ND_DESC_MAX_ZETA */
+    int angular_lambda[ND_DESC_MAX_ANGULAR]; /* +1 or -1 */
+} nd_descriptor_params;
+
+/* Fills p with our default set, meant for H, C, N, O, F, S, Cl:
+ *  - radial cutoff 5.2 angstrom, 10 Gaussians with centres evenly spaced
+ *    from 0.8 to 4.7 angstrom (spacing d = 0.4333) and eta = 4 ln 2 / d^2,
+ *    so neighbouring Gaussians cross at half height;
+ *  - angular cutoff 3.5 angstrom (first and second neighbour shells of
+ *    organic molecules; the low end of POTENTIAL.md's 3.5 to 4.5, because
+ *    the angular terms grow with the square of the neighbour count and
+ *    dominate the cost at liquid density), 5 sets (eta, zeta, lambda): (0.05, 1, +1),
+ *    (0.05, 1, -1), (0.05, 4, +1), (0.05, 4, -1), (0.4, 2, +1).
+ * For 7 elements that is 70 radial + 28 * 5 = 140 angular = 210 features,
+ * inside the budget of POTENTIAL.md. Our own choice (common practice, no
+ * source); to be tuned by training. */
+void nd_descriptor_defaults(nd_descriptor_params *p);
+
+/* Checks p (counts in range, cutoffs positive, angular cutoff no larger than
+ * the radial one, finite positive widths, zeta and lambda valid). ND_EINPUT
+ * naming the first bad parameter. */
+int nd_descriptor_check(const nd_descriptor_params *p, nd_error *err);
+
+/* Number of features for a model of nel elements. */
+int nd_descriptor_size(const nd_descriptor_params *p, int nel);
+
+/* The cutoff function fc(r) above for cutoff rc; writes fc' and fc'' to d1
+ * and d2 when they are not NULL. Zero (with zero derivatives) for r >= rc. */
+double nd_descriptor_cutoff(double r, double rc, double *d1, double *d2);
+
+/* ---- module-internal: used by potential.c and the trainer ---- */
+
+/* Scratch needed by the per-atom calls for an atom with up to maxnn
+ * neighbours, for a model of nel elements: doubles (and maxnn ints). */
+size_t nd_descriptor_scratch_doubles(const nd_descriptor_params *p, int nel, int maxnn);
+
+/* Features of atom i. x: coordinates (3 per atom, the same indexing as
+ * species and nbr), species: element slot per atom, nbr: the nn neighbours
+ * of i within the radial cutoff (any order, no i). G (size D) is
+ * overwritten. dscratch and iscratch as sized above (iscratch: maxnn ints). */
+void nd_descriptor_atom(const nd_descriptor_params *p, int nel, const double *x, const int *species,
+                        int i, const int *nbr, int nn, double *G, double *dscratch, int *iscratch);
+
+/* Contracts the feature derivatives of atom i with u = dE/dG_i (size D):
+ * gi (3) receives d(u.G_i)/dx_i and gj (3 * nn) receives d(u.G_i)/dx_j for
+ * each neighbour in nbr order. Both are overwritten. Same arguments as
+ * nd_descriptor_atom otherwise. */
+void nd_descriptor_atom_grad(const nd_descriptor_params *p, int nel, const double *x,
+                             const int *species, int i, const int *nbr, int nn, const double *u,
+                             double *gi, double *gj, double *dscratch, int *iscratch);
+
+/* The same contraction for all atoms at once, as potential.c uses it: U
+ * holds dE/dG of every atom (atom a in row row[a], D columns). The radial
+ * term of each pair (i, j), for both centres, is done by the call for the
+ * lower index from one set of Gaussians, so the sum over all atoms of gi
+ * and gj equals that of nd_descriptor_atom_grad, with half the radial work;
+ * the split between the two calls differs. */
+void nd_descriptor_atom_grad_shared(const nd_descriptor_params *p, int nel, const double *x,
+                                    const int *species, int i, const int *nbr, int nn,
+                                    const double *U, const int *row, int D, double *gi,
+                                    double *gj, double *dscratch, int *iscratch);
+
+#endif

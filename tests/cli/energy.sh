@@ -1,0 +1,70 @@
+#!/bin/bash
+# nadir energy end to end with a random-weight model (made by the documented
+# test helper --make-random-model): table and JSON output, forces that are
+# the negative gradient of the printed energies (central differences of the
+# energies of displaced copies, computed here in Python), errors named.
+cd "$(dirname "$0")/../.."
+. tests/lib/tap.sh
+T="$TAP_TMP"
+
+check "writes a random test model" "$NADIR" energy --make-random-model "$T/r.model" --elements H,C,N,O --seed 7
+cat > "$T/m.xyz" <<'XYZ'
+6
+methanol-like
+C   0.0000  0.0000  0.0000
+O   1.4210  0.0200 -0.0300
+H  -0.3700  1.0200  0.0400
+H  -0.3600 -0.5100  0.8900
+H  -0.3500 -0.5300 -0.8800
+H   1.7300 -0.8900  0.0500
+XYZ
+check "table output" "$NADIR" energy "$T/m.xyz" --model "$T/r.model"
+if grep -q "methanol-like" "$TAP_TMP/out" && grep -q "kcal/mol" "$TAP_TMP/out"; then ok "table names the record and units"
+else not_ok "table names the record and units" "$(head -c 300 "$TAP_TMP/out")"; fi
+
+# Displaced copies along coordinate (atom 2, x) by +-h, +-2h; forces from the centre.
+/usr/bin/python3 - "$T/m.xyz" "$T/d.xyz" <<'PY'
+import sys
+lines = open(sys.argv[1]).read().splitlines()
+atoms = [l.split() for l in lines[2:]]
+h = 1e-4
+out = []
+for d in (0, h, -h, 2 * h, -2 * h):
+    out.append("%d\nshift %g" % (len(atoms), d))
+    for i, a in enumerate(atoms):
+        x = [float(v) for v in a[1:]]
+        if i == 1: x[0] += d
+        out.append("%s %.10f %.10f %.10f" % (a[0], x[0], x[1], x[2]))
+open(sys.argv[2], "w").write("\n".join(out) + "\n")
+PY
+check "json with forces" "$NADIR" energy "$T/d.xyz" --model "$T/r.model" --gradient --json
+cp "$TAP_TMP/out" "$T/d.json"
+if /usr/bin/python3 - "$T/d.json" <<'PY'
+import json, sys
+d = json.load(open(sys.argv[1]))
+r = d["records"]; e = [x["energy"] for x in r]; h = 1e-4
+# fourth-order central difference of the energy (common practice, no source)
+fd = (8 * (e[1] - e[2]) - (e[3] - e[4])) / (12 * h)
+f = r[0]["forces"][1][0]
+scale = max(abs(v) for a in r[0]["forces"] for v in a)
+assert abs(-fd - f) <= 1e-6 * max(abs(fd), 1e-3 * scale), (fd, f)
+assert len(r[0]["member_energies"]) == d["model"]["members"] == 4
+assert r[0]["energy_spread"] > 0 and r[1]["energy_vs_first_spread"] < r[1]["energy_spread"]
+assert abs(sum(r[0]["member_energies"]) / 4 - r[0]["energy"]) < 1e-12 * max(1, abs(r[0]["energy"]))
+PY
+then ok "force = -dE/dx end to end; spreads consistent"; else not_ok "force = -dE/dx end to end; spreads consistent"; fi
+
+printf '2\nbromine\nC 0 0 0\nBr 1.9 0 0\n' > "$T/br.xyz"
+check_fails "element outside the model" 3 "atom 2 (Br): element not covered by the model" \
+  "$NADIR" energy "$T/br.xyz" --model "$T/r.model"
+cat "$T/br.xyz" "$T/m.xyz" > "$T/mix.xyz"
+check_fails "some records failed" 5 "record 1" "$NADIR" energy "$T/mix.xyz" --model "$T/r.model"
+check_fails "no model" 2 "pass --model FILE" "$NADIR" energy "$T/m.xyz"
+printf 'not a model\n' > "$T/bad.model"
+check_fails "not a model file" 3 "not a nadir model file" "$NADIR" energy "$T/m.xyz" --model "$T/bad.model"
+head -c 5000 "$T/r.model" > "$T/cut.model"
+check_fails "truncated model file" 3 "truncated" "$NADIR" energy "$T/m.xyz" --model "$T/cut.model"
+check_fails "missing input" 3 "nope.xyz" "$NADIR" energy "$T/nope.xyz" --model "$T/r.model"
+check_fails "usage" 2 "no input file" "$NADIR" energy --model "$T/r.model"
+check "help" "$NADIR" energy --help
+finish

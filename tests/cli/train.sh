@@ -1,0 +1,108 @@
+#!/bin/bash
+# nadir train and nadir evaluate on a small generated dataset: a run, the
+# per-epoch lines, resume equal to an uninterrupted run (same model bytes),
+# evaluate's text and JSON, and rejected inputs with their line numbers.
+cd "$(dirname "$0")/../.."
+. tests/lib/tap.sh
+T="$TAP_TMP"
+
+# A dataset of 8 small H/C/O molecules, 6 structures each: random bonded
+# chains with pair Morse energies (an invented analytic potential; forces
+# are its exact negative gradient, computed here with numpy).
+/usr/bin/python3 - "$T/data.jsonl" <<'PY'
+import json, sys
+import numpy as np
+rng = np.random.default_rng(7)
+out = open(sys.argv[1], "w")
+out.write(json.dumps({"dataset": "nadir", "version": 1, "energy_unit": "kcal/mol", "length_unit": "angstrom"}) + "\n")
+def energy(el, x):
+    e, g = 0.0, np.zeros_like(x)
+    for i in range(len(el)):
+        for j in range(i + 1, len(el)):
+            d = x[j] - x[i]; r = np.linalg.norm(d)
+            re = 1.1 if "H" in (el[i], el[j]) else 1.45
+            t = np.exp(-1.8 * (r - re)); e += 60 * (1 - t) ** 2
+            de = 60 * 2 * (1 - t) * 1.8 * t
+            g[j] += de * d / r; g[i] -= de * d / r
+    return e, -g
+for m in range(8):
+    heavy = ["C", "O", "C"][: 1 + m % 3]
+    el = heavy + ["H"] * (2 + m % 3)
+    base = np.cumsum(rng.normal(0, 1, (len(el), 3)) * 0.6 + [1.2, 0, 0], axis=0)
+    for c in range(6):
+        x = base + rng.normal(0, 0.05, base.shape)
+        e, f = energy(el, x)
+        out.write(json.dumps({"key": "mol-%d" % m, "elements": el, "coordinates": x.ravel().tolist(),
+                              "energy": e - 300 * len(el), "forces": f.ravel().tolist()}) + "\n")
+PY
+[ -s "$T/data.jsonl" ] && ok "generated the dataset" || not_ok "generated the dataset"
+
+OPTS="--layers 8,6 --members 2 --batch 8 --validation-fraction 0.25 --seed 5 --threads 2"
+check "a training run of 3 epochs" "$NADIR" train "$T/data.jsonl" -o "$T/a.model" $OPTS --epochs 3
+[ "$(grep -c '^epoch ' "$TAP_TMP/err")" -eq 3 ] && ok "one progress line per epoch" \
+  || not_ok "one progress line per epoch" "$(head -c 300 "$TAP_TMP/err")"
+grep -q 'train E .* F .* valid E .* F .* rel .* lr .* elapsed .* left' "$TAP_TMP/err" \
+  && ok "the progress line has errors, rate and times" || not_ok "the progress line has errors, rate and times"
+[ -s "$T/a.model" ] && [ -s "$T/a.model.state" ] && ok "model and checkpoint written" || not_ok "model and checkpoint written"
+
+# The provenance, read back from the model file's JSON header (model.h).
+if /usr/bin/python3 - "$T/a.model" <<'PY'
+import json, sys
+raw = open(sys.argv[1], "rb").read().decode("latin-1")
+hdr, _ = json.JSONDecoder().raw_decode(raw[raw.index("\n") + 1:])
+p = hdr["provenance"]
+assert p["dataset"] == "data.jsonl", p
+assert p["dataset_structures"] == 48 and p["dataset_molecules"] == 8, p
+assert p["split"]["validation_molecules"] == 2 and p["split"]["training_molecules"] == 6, p
+assert p["training"]["epochs"] == 3, p
+assert p["units"]["energy"] == "kcal/mol", p
+assert p["validation"]["force_mae"] > 0, p
+PY
+then ok "provenance: dataset, size, split, epochs, units, validation errors"; else not_ok "provenance: dataset, size, split, epochs, units, validation errors"; fi
+
+# Resume: 2 epochs, then --resume to 3, gives the same bytes as 3 in one go.
+check "2 epochs" "$NADIR" train "$T/data.jsonl" -o "$T/b.model" $OPTS --epochs 2
+check "resume to 3 epochs" "$NADIR" train "$T/data.jsonl" -o "$T/b.model" $OPTS --epochs 3 --resume
+grep -q 'resuming after epoch 2' "$TAP_TMP/err" && ok "resume says where it starts" || not_ok "resume says where it starts"
+cmp -s "$T/a.model" "$T/b.model" && ok "resumed model equals the uninterrupted one, byte for byte" \
+  || not_ok "resumed model equals the uninterrupted one, byte for byte"
+# One thread gives the same model.
+check "one thread" "$NADIR" train "$T/data.jsonl" -o "$T/c.model" $OPTS --epochs 3 --threads 1
+cmp -s "$T/a.model" "$T/c.model" && ok "1 and 2 threads give the same model" || not_ok "1 and 2 threads give the same model"
+check_fails "resume with other options is refused" 3 "another dataset or other settings" \
+  "$NADIR" train "$T/data.jsonl" -o "$T/b.model" $OPTS --epochs 4 --batch 5 --resume
+
+# Evaluate.
+check "evaluate" "$NADIR" evaluate "$T/a.model" "$T/data.jsonl"
+grep -q 'relative energy' "$TAP_TMP/out" && grep -q 'on H' "$TAP_TMP/out" && grep -q 'ensemble spread' "$TAP_TMP/out" \
+  && ok "evaluate prints energies, relative energies, forces by element, spread" || not_ok "evaluate text" "$(head -c 400 "$TAP_TMP/out")"
+"$NADIR" evaluate "$T/a.model" "$T/data.jsonl" --json > "$T/ev.json" 2>/dev/null
+if /usr/bin/python3 - "$T/ev.json" <<'PY'
+import json, sys
+d = json.load(open(sys.argv[1]))
+assert d["structures"] == 48 and d["members"] == 2
+assert d["energy"]["mae"] >= 0 and d["force"]["components"] > 0
+assert d["rank_correlation"]["molecules"] == 8
+assert {e["element"] for e in d["force"]["by_element"]} == {"H", "C", "O"}
+assert 0 <= d["spread"]["energy"]["within_two_spreads"] <= 1
+PY
+then ok "evaluate --json"; else not_ok "evaluate --json"; fi
+
+# Rejected inputs.
+head -5 "$T/data.jsonl" > "$T/bad1.jsonl"
+echo '{"key": "s", "elements": ["S", "H", "H"], "coordinates": [0,0,0, 0,1.3,0.9, 0,-1.3,0.9], "energy": -2}' >> "$T/bad1.jsonl"
+check_fails "an element outside --elements names its line" 3 "bad1.jsonl, line 6: atom 1 is S" \
+  "$NADIR" train "$T/bad1.jsonl" -o "$T/x.model" --elements H,C,O --epochs 1
+head -3 "$T/data.jsonl" > "$T/bad2.jsonl"
+echo '{"key": "w", "elements": ["O", "H", "H"], "coordinates": [0,0,0, 0,1,0, 0,0,NaN], "energy": -2}' >> "$T/bad2.jsonl"
+check_fails "a NaN names its line" 3 "line 4" "$NADIR" train "$T/bad2.jsonl" -o "$T/x.model" --epochs 1
+head -2 "$T/data.jsonl" > "$T/bad3.jsonl"
+echo '{"key": "w", "elements": ["O", "H", "H"], "coordinates": [0,0,0, 0,1,0], "energy": -2}' >> "$T/bad3.jsonl"
+check_fails "a wrong atom count names its line" 3 "line 3" "$NADIR" train "$T/bad3.jsonl" -o "$T/x.model" --epochs 1
+check_fails "bad --layers" 2 "--layers" "$NADIR" train "$T/data.jsonl" --layers 8,x
+check_fails "bad --elements" 2 "not an element" "$NADIR" train "$T/data.jsonl" --elements H,Qq
+check_fails "no dataset" 2 "no dataset" "$NADIR" train
+check "train --help" "$NADIR" train --help
+check "evaluate --help" "$NADIR" evaluate --help
+check_fails "evaluate a missing model" 3 "nope.model" "$NADIR" evaluate "$T/nope.model" "$T/data.jsonl"
+finish
