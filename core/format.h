@@ -55,6 +55,11 @@ int nd_reader_record(const nd_reader *r);
 /* Name of the input as used in messages ("stdin" for "-"). Owned by r. */
 const char *nd_reader_name(const nd_reader *r);
 
+/* Bytes of the input read so far (*done) and its size (*total, -1 when
+ * unknown, as for a pipe). Returns 1 when the size is known. For progress
+ * estimates. */
+int nd_reader_bytes(const nd_reader *r, long long *done, long long *total);
+
 /* Format actually being read. */
 nd_format nd_reader_format(const nd_reader *r);
 
@@ -68,7 +73,9 @@ typedef struct nd_writer nd_writer;
  * an interrupted run never leaves a half-written result. */
 int nd_writer_open(nd_writer **out, const char *path, nd_format fmt, nd_error *err);
 
-/* Appends one record. */
+/* Appends one record. A record the format cannot hold (no coordinates for
+ * XYZ, more than 999 atoms for SD V2000, ...) is ND_EINPUT naming the output
+ * and record, and nothing of it is written, so the caller may go on. */
 int nd_writer_write(nd_writer *w, const nd_molecule *mol, nd_error *err);
 
 /* Flushes, renames into place and frees w. On error the temporary is removed. */
