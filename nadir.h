@@ -42,6 +42,10 @@
 
 /* conformers */
 #include "conformers/topology.h"
+#include "conformers/rmsd.h"
+#include "conformers/automorph.h"
+#include "conformers/dedup.h"
+#include "conformers/rank.h"
 #include "conformers/embed.h"
 #include "conformers/verify.h"
 #include "conformers/sample.h"
