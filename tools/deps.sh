@@ -1,9 +1,10 @@
 #!/bin/sh
 # Checks that the Debian packages nadir needs are installed. As root, installs
 # the missing ones; otherwise prints the exact command and fails.
-# Used by `make`, `make test`, `make demo` and .ci/run.
+# Used by `make`, `make test`, `make demo` and .ci/run. xtb (GFN2-xTB) is the
+# reference method of the checks in tests/reference/ and of `make dataset`.
 set -e
-need="gcc make pkg-config libopenblas-dev liblapacke-dev libcjson-dev libcmocka-dev python3-numpy python3-scipy"
+need="gcc make pkg-config libopenblas-dev liblapacke-dev libcjson-dev libcmocka-dev python3-numpy python3-scipy xtb"
 [ -n "$ND_DEPS_EXTRA" ] && need="$need $ND_DEPS_EXTRA"
 missing=""
 for p in $need; do
