@@ -2,9 +2,13 @@
 
 #include <errno.h>
 #include <limits.h>
+#include <math.h>
 #include <stdarg.h>
 #include <stdio.h>
 #include <stdlib.h>
+#include <string.h>
+#include <sys/stat.h>
+#include <unistd.h>
 
 int cli_exit_code(int status)
 {
@@ -69,4 +73,54 @@ int cli_parse_int(const char *s, int *out)
         return -1;
     *out = (int)v;
     return 0;
+}
+
+int cli_check_output(const char *command, const char *option, const char *path)
+{
+    if (!path || strcmp(path, "-") == 0)
+        return 0;
+    struct stat sb;
+    if (stat(path, &sb) == 0 && S_ISDIR(sb.st_mode))
+        return cli_fail(command, ND_EIO, "%s %s: is a directory; expected a file name", option,
+                        path);
+    char dir[4096];
+    const char *slash = strrchr(path, '/');
+    if (!slash)
+        snprintf(dir, sizeof dir, ".");
+    else if (slash == path)
+        snprintf(dir, sizeof dir, "/");
+    else
+        snprintf(dir, sizeof dir, "%.*s", (int)(slash - path), path);
+    if (stat(dir, &sb) != 0 || !S_ISDIR(sb.st_mode))
+        return cli_fail(command, ND_EIO, "%s %s: directory %s does not exist", option, path, dir);
+    if (access(dir, W_OK | X_OK) != 0)
+        return cli_fail(command, ND_EIO, "%s %s: cannot write in directory %s: %s", option, path,
+                        dir, strerror(errno));
+    return 0;
+}
+
+int cli_close_contact(const nd_molecule *mol, char *buf, size_t size)
+{
+    if (size)
+        buf[0] = '\0';
+    if (!mol || !mol->xyz || mol->dimension == 0)
+        return 0;
+    const double *x = mol->xyz;
+    double best = INFINITY;
+    int a = 0, b = 0;
+    for (int i = 0; i < mol->natoms; i++)
+        for (int j = i + 1; j < mol->natoms; j++) {
+            double dx = x[3 * i] - x[3 * j], dy = x[3 * i + 1] - x[3 * j + 1],
+                   dz = x[3 * i + 2] - x[3 * j + 2];
+            double d = sqrt(dx * dx + dy * dy + dz * dz);
+            if (d < best) {
+                best = d;
+                a = i;
+                b = j;
+            }
+        }
+    if (!(best < 0.5))
+        return 0;
+    snprintf(buf, size, " (atoms %d and %d are only %.3f A apart)", a + 1, b + 1, best);
+    return 1;
 }

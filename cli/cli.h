@@ -32,6 +32,17 @@ int cli_error(const char *command, const nd_error *err);
 /* Usage error: prints the message and a pointer to --help; returns ND_EXIT_USAGE. */
 int cli_usage(const char *command, const char *fmt, ...) __attribute__((format(printf, 2, 3)));
 
+/* Checks, before a long run, that the output file path could be written
+ * at the end: its directory exists and is writable and path is not a
+ * directory. "-" and NULL pass. 0, or prints "nadir COMMAND: ..." naming
+ * the option and returns ND_EXIT_INPUT. */
+int cli_check_output(const char *command, const char *option, const char *path);
+
+/* When two atoms of mol are closer than 0.5 angstrom (a broken structure,
+ * the usual reason a potential fails), writes " (atoms I and J are only D A
+ * apart)" into buf and returns 1; otherwise buf = "" and 0. */
+int cli_close_contact(const nd_molecule *mol, char *buf, size_t size);
+
 /* Parses a whole string as a number; 0 on success, -1 if it is not one. */
 int cli_parse_double(const char *s, double *out);
 int cli_parse_int(const char *s, int *out);

@@ -36,7 +36,8 @@ static void usage(FILE *f)
             "  SMILES        one molecule, e.g. 'CC(=O)Oc1ccccc1C(=O)O'\n"
             "  FILE          a file of SMILES, one per line, optional name after whitespace\n"
             "                ('-' reads standard input); each line becomes its records\n"
-            "  -o OUT.sdf    SD file to write (default: standard output)\n"
+            "  -o, --output OUT.sdf\n"
+            "                SD file to write (default: standard output)\n"
             "  --count N     structures per molecule from independent starts (default 1)\n"
             "  --seed S      seed of the random starts (default 1)\n"
             "  --help        this text\n"
@@ -150,53 +151,102 @@ static int is_file(const char *path)
     return strcmp(path, "-") == 0 || (stat(path, &sb) == 0 && S_ISREG(sb.st_mode));
 }
 
+/* What an SD or XYZ file given by mistake (stdin, or a .smi name) shows in
+ * its first lines, or NULL: line 4 an SD counts line, or line 1 an atom
+ * count alone (never valid SMILES). head[k] is line k + 1 or NULL. */
+static const char *other_format(char *const head[4])
+{
+    if (head[3] && strlen(head[3]) >= 39 &&
+        (strncmp(head[3] + 34, "V2000", 5) == 0 || strncmp(head[3] + 34, "V3000", 5) == 0))
+        return "an SD file (line 4 is a counts line)";
+    if (head[0]) {
+        const char *p = head[0] + strspn(head[0], " \t");
+        size_t d = strspn(p, "0123456789");
+        if (d > 0 && p[d + strspn(p + d, " \t\r\n")] == '\0')
+            return "an XYZ file (line 1 is an atom count)";
+    }
+    return NULL;
+}
+
+/* Builds one line of a SMILES file (SMILES, then an optional name). */
+static void build_line(build_state *st, const build_options *o, const char *name, long lineno,
+                       char *p, int *last_status)
+{
+    if (lineno == 1 && strncmp(p, "\xef\xbb\xbf", 3) == 0)
+        p += 3; /* a UTF-8 byte-order mark (Windows editors) */
+    while (isspace((unsigned char)*p))
+        p++;
+    if (!*p || *p == '#')
+        return;
+    char *e = p;
+    while (*e && !isspace((unsigned char)*e))
+        e++;
+    char *nm = e;
+    if (*nm)
+        *nm++ = '\0';
+    while (isspace((unsigned char)*nm))
+        nm++;
+    size_t nl = strlen(nm);
+    while (nl > 0 && isspace((unsigned char)nm[nl - 1]))
+        nm[--nl] = '\0';
+    char where[512];
+    snprintf(where, sizeof where, "%s, line %ld", name, lineno);
+    int s = build_one(st, o, p, nm, where);
+    if (s != ND_OK)
+        *last_status = s;
+}
+
 /* Builds every line of a SMILES file. Returns the status of the last
- * fatal error (I/O), or ND_OK; per-line failures are counted in st. */
+ * fatal error (I/O, or an SD/XYZ file given instead), or ND_OK; per-line
+ * failures are counted in st. The first four lines are read before any is
+ * built, so a file of another format is refused before anything is written. */
 static int build_file(build_state *st, const build_options *o, int *last_status)
 {
     FILE *f = strcmp(o->input, "-") == 0 ? stdin : fopen(o->input, "r");
     if (!f)
         return cli_fail(CMD, ND_EIO, "cannot open %s: %s", o->input, strerror(errno)), ND_EIO;
     const char *name = strcmp(o->input, "-") == 0 ? "stdin" : o->input;
+    char *head[4] = {NULL, NULL, NULL, NULL};
     char *line = NULL;
     size_t cap = 0;
     long lineno = 0;
-    ssize_t len;
+    int status = ND_OK;
+    for (int k = 0; k < 4; k++) {
+        size_t hc = 0;
+        if (getline(&head[k], &hc, f) < 0) {
+            free(head[k]);
+            head[k] = NULL;
+            break;
+        }
+    }
+    const char *kind = other_format(head);
+    if (kind) {
+        cli_fail(CMD, ND_EINPUT, "%s looks like %s; build reads SMILES, one per line", name, kind);
+        status = ND_EINPUT;
+        goto done;
+    }
     nd_progress prog;
     nd_progress_start(&prog, "molecules", 0);
-    while ((len = getline(&line, &cap, f)) >= 0) {
-        lineno++;
-        char *p = line;
-        while (isspace((unsigned char)*p))
-            p++;
-        if (!*p || *p == '#')
-            continue;
-        char *e = p;
-        while (*e && !isspace((unsigned char)*e))
-            e++;
-        char *nm = e;
-        if (*nm)
-            *nm++ = '\0';
-        while (isspace((unsigned char)*nm))
-            nm++;
-        size_t nl = strlen(nm);
-        while (nl > 0 && isspace((unsigned char)nm[nl - 1]))
-            nm[--nl] = '\0';
-        char where[512];
-        snprintf(where, sizeof where, "%s, line %ld", name, lineno);
-        int s = build_one(st, o, p, nm, where);
-        if (s != ND_OK)
-            *last_status = s;
+    for (int k = 0; k < 4 && head[k]; k++) {
+        build_line(st, o, name, ++lineno, head[k], last_status);
+        nd_progress_update(&prog, st->built + st->failed);
+    }
+    while (head[3] && getline(&line, &cap, f) >= 0) {
+        build_line(st, o, name, ++lineno, line, last_status);
         nd_progress_update(&prog, st->built + st->failed);
     }
     nd_progress_finish(&prog);
-    int io = ferror(f);
+    if (ferror(f)) {
+        cli_fail(CMD, ND_EIO, "error reading %s", name);
+        status = ND_EIO;
+    }
+done:
+    for (int k = 0; k < 4; k++)
+        free(head[k]);
     free(line);
     if (f != stdin)
         fclose(f);
-    if (io)
-        return cli_fail(CMD, ND_EIO, "error reading %s", name), ND_EIO;
-    return ND_OK;
+    return status;
 }
 
 int cmd_build(int argc, char **argv)
@@ -211,14 +261,28 @@ int cmd_build(int argc, char **argv)
     if (nd_writer_open(&st.w, o.output, ND_FORMAT_SDF, &err) != ND_OK)
         return cli_error(CMD, &err);
     int last = ND_OK;
-    if (is_file(o.input) || nd_format_from_path(o.input) != ND_FORMAT_AUTO) {
+    struct stat sb;
+    nd_format named = nd_format_from_path(o.input);
+    if (strcmp(o.input, "-") != 0 && stat(o.input, &sb) == 0 && S_ISDIR(sb.st_mode)) {
+        nd_writer_abort(st.w);
+        return cli_fail(CMD, ND_EINPUT, "%s is a directory, not a SMILES file", o.input);
+    }
+    if (named == ND_FORMAT_SDF || named == ND_FORMAT_XYZ) {
+        nd_writer_abort(st.w);
+        return cli_fail(CMD, ND_EINPUT,
+                        "%s is named as %s; build reads SMILES (a string, or a .smi file "
+                        "of one per line); use nadir convert or optimize for 3D files",
+                        o.input, named == ND_FORMAT_SDF ? "an SD file" : "an XYZ file");
+    }
+    if (is_file(o.input) || named != ND_FORMAT_AUTO) {
         if (build_file(&st, &o, &last) != ND_OK) {
             nd_writer_abort(st.w);
             return ND_EXIT_INPUT;
         }
         if (st.built + st.failed == 0) {
             nd_writer_abort(st.w);
-            return cli_fail(CMD, ND_EINPUT, "%s has no SMILES lines", o.input);
+            return cli_fail(CMD, ND_EINPUT, "%s has no SMILES lines",
+                            strcmp(o.input, "-") == 0 ? "stdin" : o.input);
         }
     } else {
         last = build_one(&st, &o, o.input, NULL, NULL);

@@ -7,6 +7,7 @@
 #include <getopt.h>
 #include <stdio.h>
 #include <string.h>
+#include <sys/stat.h>
 
 static const char *CMD = "convert";
 
@@ -26,7 +27,9 @@ static void usage(FILE *f)
             "is V2000 with coordinates to 4 decimals (the format's fixed columns); XYZ output\n"
             "keeps coordinates exactly. A bad record is reported on stderr with its file,\n"
             "record and line and left out; the others are converted. OUT appears only when\n"
-            "the conversion is finished.\n"
+            "the conversion is finished. What is lost is noted on stderr: charges, unpaired\n"
+            "electrons and isotopes (XYZ output), bonds (XYZ input has none), coordinates\n"
+            "(SMILES input has none: zeros in SD output, refused by XYZ output).\n"
             "\n"
             "  IN, OUT       .xyz, .sdf/.sd/.mol or .smi files; '-' is standard input/output\n"
             "  --from F      read IN as F (xyz, sdf, smiles) whatever its name\n"
@@ -84,7 +87,11 @@ static int parse(int argc, char **argv, convert_options *o)
             return cli_usage(CMD, "cannot tell the output format of '%s'; add --to xyz, sdf or smiles",
                              o->output);
     }
-    if (strcmp(o->input, "-") != 0 && strcmp(o->input, o->output) == 0)
+    struct stat si, so;
+    if (strcmp(o->input, "-") != 0 &&
+        (strcmp(o->input, o->output) == 0 ||
+         (stat(o->input, &si) == 0 && stat(o->output, &so) == 0 && si.st_dev == so.st_dev &&
+          si.st_ino == so.st_ino)))
         return cli_usage(CMD, "input and output are the same file '%s'", o->input);
     return 0;
 }
@@ -106,13 +113,14 @@ int cmd_convert(int argc, char **argv)
     if (rc != 0)
         return rc < 0 ? ND_EXIT_OK : rc;
 
+    const char *out_name = strcmp(o.output, "-") == 0 ? "stdout" : o.output;
     nd_error err;
     nd_error_clear(&err);
     nd_reader *r = NULL;
     nd_writer *w = NULL;
     nd_molecule mol;
     nd_molecule_init(&mol);
-    int written = 0, failed = 0;
+    int written = 0, failed = 0, lost_charge = 0, no_bonds = 0, no_coords = 0;
 
     if (nd_reader_open(&r, o.input, o.from, &err) != ND_OK) {
         rc = cli_error(CMD, &err);
@@ -130,8 +138,19 @@ int cmd_convert(int argc, char **argv)
             break;
         if (s == ND_OK) {
             s = nd_writer_write(w, &mol, &err);
+            if (s != ND_OK)
+                nd_error_prefix(&err, "%s, record %d", nd_reader_name(r), nd_reader_record(r));
             if (s == ND_OK) {
                 written++;
+                int isotopes = 0;
+                for (int i = 0; i < mol.natoms && mol.isotope; i++)
+                    isotopes |= mol.isotope[i] != 0;
+                if (o.to == ND_FORMAT_XYZ && (mol.charge != 0 || mol.multiplicity != 1 || isotopes))
+                    lost_charge++;
+                if (o.to == ND_FORMAT_SDF && !mol.has_bonds && mol.natoms > 1)
+                    no_bonds++;
+                if (o.to == ND_FORMAT_SDF && mol.dimension == 0)
+                    no_coords++;
                 show_progress(&prog, r, written + failed);
                 continue;
             }
@@ -140,7 +159,7 @@ int cmd_convert(int argc, char **argv)
         if (s != ND_EINPUT || o.strict) { /* final error, or any error under --strict */
             rc = cli_error(CMD, &err);
             if (o.strict && s == ND_EINPUT)
-                fprintf(stderr, "nadir %s: stopped (--strict); %s not written\n", CMD, o.output);
+                fprintf(stderr, "nadir %s: stopped (--strict); %s not written\n", CMD, out_name);
             goto done;
         }
         failed++;
@@ -148,7 +167,7 @@ int cmd_convert(int argc, char **argv)
     }
     nd_progress_finish(&prog);
     if (written == 0) {
-        fprintf(stderr, "nadir %s: no record could be converted; %s not written\n", CMD, o.output);
+        fprintf(stderr, "nadir %s: no record could be converted; %s not written\n", CMD, out_name);
         rc = ND_EXIT_INPUT;
         goto done;
     }
@@ -163,6 +182,23 @@ int cmd_convert(int argc, char **argv)
     if (failed)
         fprintf(stderr, "; %d failed and left out", failed);
     fputc('\n', stderr);
+    if (lost_charge)
+        fprintf(stderr,
+                "nadir %s: note: %d record%s had a net charge, unpaired electrons or isotope "
+                "labels, which XYZ cannot hold; reading %s back gives neutral singlets of "
+                "natural isotopes\n",
+                CMD, lost_charge, lost_charge == 1 ? "" : "s",
+                strcmp(o.output, "-") == 0 ? "the output" : o.output);
+    if (no_bonds)
+        fprintf(stderr,
+                "nadir %s: note: %d record%s had no bond table (XYZ input); SD records written "
+                "without bonds\n",
+                CMD, no_bonds, no_bonds == 1 ? "" : "s");
+    if (no_coords)
+        fprintf(stderr,
+                "nadir %s: note: %d record%s had no coordinates (SMILES); SD records written with "
+                "all coordinates 0 (nadir build makes 3D structures)\n",
+                CMD, no_coords, no_coords == 1 ? "" : "s");
     rc = failed ? ND_EXIT_PARTIAL : ND_EXIT_OK;
 done:
     nd_writer_abort(w);

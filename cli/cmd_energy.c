@@ -47,9 +47,10 @@ static void usage(FILE *f)
             "  --help          this text\n"
             "\n"
             "for tests (no trained model is bundled yet):\n"
-            "  --make-random-model OUT [--elements H,C,N,O] [--seed N]\n"
+            "  --make-random-model OUT [--elements LIST] [--seed N]\n"
             "                  write a model with random weights (4 members, default\n"
-            "                  descriptor) to OUT and stop; its energies mean nothing\n"
+            "                  descriptor; elements default H,C,N,O,F,S,Cl) to OUT and\n"
+            "                  stop; its energies mean nothing\n"
             "\n"
             "examples:\n"
             "  nadir energy conformers.sdf --model organic.model\n"
@@ -143,6 +144,8 @@ static int make_random_model(const energy_options *o)
         return cli_error(CMD, &err);
     }
     nd_model_free(m);
+    fprintf(stderr, "nadir %s: random-weight model written to %s (for tests only)\n", CMD,
+            o->make_model);
     return ND_EXIT_OK;
 }
 
@@ -199,7 +202,8 @@ static int evaluate(const nd_model *model, const nd_molecule *mol, int gradient,
     if (s)
         return s;
     if (mol->dimension != 3 && mol->natoms > 1)
-        return nd_fail(err, ND_EINPUT, "the record has no 3D coordinates");
+        return nd_fail(err, ND_EINPUT, "the record has no 3D coordinates (%s); nadir build makes "
+                       "them from SMILES", mol->dimension == 2 ? "a 2D drawing" : "none at all");
     int n = mol->natoms, K = nd_model_members(model);
     res->n = n;
     res->K = K;
@@ -311,13 +315,22 @@ int cmd_energy(int argc, char **argv)
         if (s == ND_END)
             break;
         int rec = nd_reader_record(r);
+        int read_failed = s != ND_OK; /* the reader's message names file and record */
         if (s == ND_OK)
             s = evaluate(model, &mol, o.gradient, &res, &err);
         if (s == ND_ENOMEM)
             goto nomem;
         if (s != ND_OK) {
             failed++;
-            fprintf(stderr, "nadir %s: %s, record %d: %s\n", CMD, nd_reader_name(r), rec, err.msg);
+            if (read_failed)
+                fprintf(stderr, "nadir %s: %s\n", CMD, err.msg);
+            else {
+                char close[96] = "";
+                if (s == ND_ECOMPUTE)
+                    cli_close_contact(&mol, close, sizeof close);
+                fprintf(stderr, "nadir %s: %s, record %d: %s%s\n", CMD, nd_reader_name(r), rec,
+                        err.msg, close);
+            }
             if (failures) {
                 cJSON *f = cJSON_CreateObject();
                 cJSON_AddItemToArray(failures, f);
@@ -354,11 +367,17 @@ int cmd_energy(int argc, char **argv)
             cJSON_AddStringToObject(j, "title", title);
             cJSON_AddNumberToObject(j, "atoms", mol.natoms);
             cJSON_AddNumberToObject(j, "energy", res.energy);
-            cJSON_AddNumberToObject(j, "energy_spread", res.spread);
+            if (K > 1) /* one member has no spread: null, not a zero uncertainty */
+                cJSON_AddNumberToObject(j, "energy_spread", res.spread);
+            else
+                cJSON_AddNullToObject(j, "energy_spread");
             nd_report_add_numbers(j, "member_energies", res.member_e, K, NULL);
             if (have_rel) {
                 cJSON_AddNumberToObject(j, "energy_vs_first", rel);
-                cJSON_AddNumberToObject(j, "energy_vs_first_spread", rel_spread);
+                if (K > 1)
+                    cJSON_AddNumberToObject(j, "energy_vs_first_spread", rel_spread);
+                else
+                    cJSON_AddNullToObject(j, "energy_vs_first_spread");
             }
             if (o.gradient) {
                 cJSON *fa = cJSON_AddArrayToObject(j, "forces");
@@ -366,7 +385,10 @@ int cmd_energy(int argc, char **argv)
                     double fv[3] = {0.0 - res.grad[3 * i], 0.0 - res.grad[3 * i + 1], 0.0 - res.grad[3 * i + 2]};
                     cJSON_AddItemToArray(fa, cJSON_CreateDoubleArray(fv, 3));
                 }
-                cJSON_AddNumberToObject(j, "force_spread_max", res.force_spread);
+                if (K > 1)
+                    cJSON_AddNumberToObject(j, "force_spread_max", res.force_spread);
+                else
+                    cJSON_AddNullToObject(j, "force_spread_max");
             }
         } else {
             if (!header || o.gradient) {
@@ -374,13 +396,16 @@ int cmd_energy(int argc, char **argv)
                        "energy", "spread", "vs first", "spread");
                 header = 1;
             }
-            char rels[32] = "-", rsp[32] = "-";
+            char rels[32] = "-", rsp[32] = "-", sp[32] = "-";
             if (have_rel) {
                 snprintf(rels, sizeof rels, "%.4f", rel);
-                snprintf(rsp, sizeof rsp, "%.4f", rel_spread);
+                if (K > 1)
+                    snprintf(rsp, sizeof rsp, "%.4f", rel_spread);
             }
-            printf("%6d  %-24.24s  %6d  %16.4f  %10.4f  %14s  %10s\n", rec, title, mol.natoms,
-                   res.energy, res.spread, rels, rsp);
+            if (K > 1)
+                snprintf(sp, sizeof sp, "%.4f", res.spread);
+            printf("%6d  %-24.24s  %6d  %16.4f  %10s  %14s  %10s\n", rec, title, mol.natoms,
+                   res.energy, sp, rels, rsp);
             if (o.gradient) {
                 printf("        %5s  %-4s  %14s  %14s  %14s\n", "atom", "elem", "force x", "force y",
                        "force z");
@@ -388,16 +413,24 @@ int cmd_energy(int argc, char **argv)
                     printf("        %5d  %-4s  %14.6f  %14.6f  %14.6f\n", i + 1,
                            nd_element_symbol(mol.z[i]), 0.0 - res.grad[3 * i], 0.0 - res.grad[3 * i + 1],
                            0.0 - res.grad[3 * i + 2]);
-                printf("        largest per-atom force spread %.4f kcal/mol/angstrom\n\n",
-                       res.force_spread);
+                if (K > 1)
+                    printf("        largest per-atom force spread %.4f kcal/mol/angstrom\n\n",
+                           res.force_spread);
+                else
+                    printf("\n");
             }
         }
         result_free(&res);
     }
-    if (!o.json && done > 0)
-        printf("energies in kcal/mol (mean of %d ensemble members; spread = their sample standard "
-               "deviation)\n",
-               K);
+    if (!o.json && done > 0) {
+        if (K > 1)
+            printf("energies in kcal/mol (mean of %d ensemble members; spread = their sample "
+                   "standard deviation)%s\n",
+                   K, o.gradient ? "; forces in kcal/mol/angstrom" : "");
+        else
+            printf("energies in kcal/mol (a model of one member: no ensemble, so no spread)%s\n",
+                   o.gradient ? "; forces in kcal/mol/angstrom" : "");
+    }
     if (o.json) {
         cJSON_AddNumberToObject(doc, "done", done);
         cJSON_AddNumberToObject(doc, "failed", failed);

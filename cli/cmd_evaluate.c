@@ -218,6 +218,11 @@ int cmd_evaluate(int argc, char **argv)
     if (rep.bad_lines)
         fprintf(stderr, "nadir evaluate: skipped %ld bad lines; the first: %s\n", rep.bad_lines,
                 rep.first_bad);
+    if (nd_dataset_count(d) == 0) {
+        nd_dataset_free(d);
+        nd_model_free(m);
+        return cli_fail(CMD, ND_EINPUT, "%s: the dataset has no structures", o.data);
+    }
     nd_evaluation ev;
     s = nd_evaluate_dataset(m, d, &ev, &err);
     if (s) {

@@ -34,7 +34,8 @@ static void usage(FILE *f)
             "charge, bond count (when the file has bonds) and number of data items.\n"
             "A bad record is reported on stderr with its file, record and line, and the\n"
             "others are still listed. Counts are of the atoms in the file: a record whose\n"
-            "bonds leave valences open (hydrogens left implicit) gets a note on stderr.\n"
+            "bonds leave valences open (hydrogens left implicit) gets a note on stderr,\n"
+            "and so does an SD record with atoms but no bonds (made from XYZ).\n"
             "\n"
             "  IN            .xyz, .sdf/.sd/.mol or .smi file; '-' reads standard input\n"
             "  --json        print one JSON document instead of the table\n"
@@ -227,7 +228,15 @@ int cmd_inspect(int argc, char **argv)
             rc = cli_error(CMD, &err);
             goto done;
         }
-        int open = open_valences(&mol);
+        int bondless = mol.has_bonds && mol.nbonds == 0 && mol.natoms > 1;
+        int open = bondless ? 0 : open_valences(&mol);
+        if (bondless) {
+            nd_progress_finish(&prog);
+            fprintf(stderr,
+                    "nadir %s: note: %s, record %d: %d atoms and no bonds (made from XYZ?); the "
+                    "open-valence check is skipped\n",
+                    CMD, nd_reader_name(r), nd_reader_record(r), mol.natoms);
+        }
         if (open > 0) {
             nd_progress_finish(&prog);
             fprintf(stderr,

@@ -148,7 +148,12 @@ static int parse(int argc, char **argv, label_options *o)
         case O_TOL:
             if (cli_parse_double(optarg, &v) < 0 || !isfinite(v) || v < 0 ||
                 (v == 0 && c != O_NUDGE) || (c == O_NUDGE && v > 0.1) || (c == O_STEP && v > 0.1))
-                return cli_usage(CMD, "%s takes a positive number%s, not '%s'", argv[optind - 1],
+                return cli_usage(CMD, "%s takes a %s number%s, not '%s'",
+                                 c == O_TIMEOUT ? "--timeout"
+                                 : c == O_NUDGE ? "--nudge"
+                                 : c == O_STEP  ? "--audit-step"
+                                                : "--audit-tolerance",
+                                 c == O_NUDGE ? "non-negative" : "positive",
                                  c == O_NUDGE || c == O_STEP ? " (at most 0.1 angstrom)" : "", optarg);
             if (c == O_TIMEOUT)
                 o->timeout = v;
@@ -556,6 +561,11 @@ int cmd_label(int argc, char **argv)
     rc = read_items(&o, &items, &nitems, &read_failed);
     if (rc != 0)
         goto done;
+    if (nitems == 0) { /* nothing to label: leave the dataset as it is (or absent) */
+        rc = cli_fail(CMD, ND_EINPUT, "no usable structure in %s (%d unusable record%s); %s not touched",
+                      o.input, read_failed, read_failed == 1 ? "" : "s", o.output);
+        goto done;
+    }
 
     long dropped = 0;
     if (nd_dataset_writer_open(&w, o.output, &dropped, &err) != ND_OK) {

@@ -63,7 +63,9 @@ static void usage(FILE *f)
             "                           18, 9955, 2012; w0 = %g cm^-1, alpha = %g)\n"
             "  --json                   print one JSON document instead of the tables\n"
             "  --report FILE            also write the JSON document to FILE\n"
-            "  --write FILE             write the final structures (after --relax/--repair)\n"
+            "  -o, --output FILE        write the final structures (after --relax/--repair),\n"
+            "                           with data items modes_verdict and modes_imaginary;\n"
+            "                           --write FILE is the same\n"
             "  --animate WHICH          animate modes: all, imaginary, or a mode number\n"
             "  --animate-out FILE       multi-frame .xyz for the animations (required with --animate)\n"
             "  --frames N               frames per mode (default %d)\n"
@@ -76,7 +78,7 @@ static void usage(FILE *f)
             "\n"
             "examples:\n"
             "  nadir modes relaxed.sdf --model ligands.model\n"
-            "  nadir modes ts-guess.xyz --model ligands.model --repair --write fixed.xyz\n"
+            "  nadir modes ts-guess.xyz --model ligands.model --repair -o fixed.xyz\n"
             "  nadir modes water.xyz --model ligands.model --animate all --animate-out water-modes.xyz\n"
             "  nadir modes frames.xyz --potential-command 'tools/reference-gradient' --json\n"
             "\n"
@@ -116,6 +118,7 @@ static int parse(int argc, char **argv, modes_options *o)
         {"json", no_argument, NULL, O_JSON},
         {"report", required_argument, NULL, O_REPORT},
         {"write", required_argument, NULL, O_WRITE},
+        {"output", required_argument, NULL, O_WRITE},
         {"animate", required_argument, NULL, O_ANIM},
         {"animate-out", required_argument, NULL, O_ANIM_OUT},
         {"frames", required_argument, NULL, O_FRAMES},
@@ -133,7 +136,7 @@ static int parse(int argc, char **argv, modes_options *o)
     opterr = 0;
     optind = 1;
     int c, rc;
-    while ((c = getopt_long(argc, argv, ":h", longopts, NULL)) != -1) {
+    while ((c = getopt_long(argc, argv, ":o:h", longopts, NULL)) != -1) {
         switch (c) {
         case O_MODEL: o->model = optarg; break;
         case O_COMMAND: o->command = optarg; break;
@@ -165,6 +168,7 @@ static int parse(int argc, char **argv, modes_options *o)
         case O_QUASI: o->quasi = 1; break;
         case O_JSON: o->json = 1; break;
         case O_REPORT: o->report = optarg; break;
+        case 'o':
         case O_WRITE: o->write_out = optarg; break;
         case O_ANIM:
             if (strcmp(optarg, "all") == 0)
@@ -228,8 +232,12 @@ static int parse_frozen(const char *list, int n, int *mask, nd_error *err)
                 return nd_fail(err, ND_EINPUT, "--frozen '%s': a range needs two numbers", list), -1;
             p = end;
         }
-        if (a < 1 || b < a || b > n)
-            return nd_fail(err, ND_EINPUT, "--frozen '%s': atoms %ld-%ld outside 1..%d", list, a, b, n), -1;
+        if (b < a)
+            return nd_fail(err, ND_EINPUT, "--frozen '%s': range %ld-%ld runs backwards", list, a,
+                           b), -1;
+        if (a < 1 || b > n)
+            return nd_fail(err, ND_EINPUT, "--frozen '%s': atom %ld is outside 1..%d (the record's atoms)",
+                           list, a < 1 ? a : b, n), -1;
         for (long i = a; i <= b; i++)
             mask[i - 1] = 1;
         if (*p == ',')
@@ -355,9 +363,23 @@ static int analyse(const modes_options *o, const bound *b, nd_molecule *mol, con
     return ND_OK;
 }
 
+/* Residual gradient (rms, kcal/mol/A) above which a structure is not taken
+ * for a stationary point: ten times the ranking preset's rms force, above
+ * what any relaxation that converged can leave (common practice, no source). */
+#define NOT_STATIONARY_RMS 0.5
+
+static int not_stationary(const nd_check *c)
+{
+    return c->grad_rms > NOT_STATIONARY_RMS;
+}
+
 static const char *verdict_text(const nd_check *c, char *buf, size_t size)
 {
-    if (c->verdict == ND_VERDICT_MINIMUM)
+    if (not_stationary(c))
+        snprintf(buf, size, "not a stationary point (%d imaginary mode%s); frequencies and "
+                 "thermochemistry are not meaningful here: use --relax",
+                 c->nimag, c->nimag == 1 ? "" : "s");
+    else if (c->verdict == ND_VERDICT_MINIMUM)
         snprintf(buf, size, "minimum");
     else
         snprintf(buf, size, "saddle point, %d imaginary mode%s", c->nimag, c->nimag == 1 ? "" : "s");
@@ -367,12 +389,12 @@ static const char *verdict_text(const nd_check *c, char *buf, size_t size)
 static void print_record(const modes_options *o, int record, const nd_molecule *mol,
                          const record_result *r)
 {
-    char formula[128], vb[64];
+    char formula[128], vb[160];
     nd_molecule_formula(mol, formula, (int)sizeof formula);
     printf("record %d  %s  %s  %d atoms\n", record, mol->title && mol->title[0] ? mol->title : "-",
            formula, mol->natoms);
     if (o->relax)
-        printf("  relaxed             %d steps, %s\n", r->relax.steps,
+        printf("  relaxed             %d step%s, %s\n", r->relax.steps, r->relax.steps == 1 ? "" : "s",
                r->relax.converged ? "converged" : "NOT converged");
     if (o->repair) {
         if (r->repair.rounds == 0)
@@ -392,13 +414,14 @@ static void print_record(const modes_options *o, int record, const nd_molecule *
                r->check.nnoise == 1 ? "" : "s");
     printf("\n");
     const nd_modes *m = &r->modes;
-    printf("  %d vibrations (%d atoms analysed, %d rigid motions removed%s)\n", m->nmodes, m->natoms,
-           m->nexternal, m->linear ? ", linear" : "");
-    printf("  %5s  %12s  %10s  %12s  %14s\n", "mode", "cm^-1", "red. mass", "k mdyn/A",
+    printf("  %d vibration%s (%d atom%s analysed, %d rigid motions removed%s)\n", m->nmodes,
+           m->nmodes == 1 ? "" : "s", m->natoms, m->natoms == 1 ? "" : "s", m->nexternal,
+           m->linear ? ", linear" : "");
+    printf("  %5s  %12s  %14s  %12s  %14s\n", "mode", "cm^-1", "red. mass amu", "k mdyn/A",
            "k kcal/mol/A2");
     for (int k = 0; k < m->nmodes; k++) {
         int imag = nd_modes_is_imaginary(m->freq[k], r->check.grad_rms, NULL);
-        printf("  %5d  %12.2f  %10.4f  %12.4f  %14.3f%s\n", k + 1, m->freq[k], m->redmass[k],
+        printf("  %5d  %12.2f  %14.4f  %12.4f  %14.3f%s\n", k + 1, m->freq[k], m->redmass[k],
                m->k_mdyn[k], m->k_kcal[k], imag ? "  imaginary" : m->freq[k] < 0 ? "  noise" : "");
     }
     if (r->have_thermo) {
@@ -436,6 +459,7 @@ static cJSON *record_json(const modes_options *o, int record, const nd_molecule 
     cJSON_AddNumberToObject(j, "energy", r->energy);
     cJSON_AddNumberToObject(j, "gradient_rms", r->check.grad_rms);
     cJSON_AddStringToObject(j, "verdict", r->check.verdict == ND_VERDICT_MINIMUM ? "minimum" : "saddle");
+    cJSON_AddBoolToObject(j, "stationary_point", !not_stationary(&r->check));
     cJSON_AddNumberToObject(j, "imaginary", r->check.nimag);
     cJSON_AddNumberToObject(j, "noise", r->check.nnoise);
     cJSON_AddBoolToObject(j, "linear", r->modes.linear);
@@ -528,6 +552,13 @@ int cmd_modes(int argc, char **argv)
     int rc = parse(argc, argv, &o);
     if (rc != 0)
         return rc < 0 ? ND_EXIT_OK : rc;
+    if ((rc = cli_check_output(CMD, "--report", o.report)) != 0)
+        return rc;
+    if ((o.write_out && strcmp(o.write_out, "-") == 0) ||
+        (o.animate_out && strcmp(o.animate_out, "-") == 0))
+        return cli_usage(CMD, "%s -: standard output carries the tables (or --json); give a file "
+                              "name",
+                         o.write_out && strcmp(o.write_out, "-") == 0 ? "-o" : "--animate-out");
 
     nd_error err;
     nd_error_clear(&err);
@@ -570,6 +601,10 @@ int cmd_modes(int argc, char **argv)
             goto out;
         }
         cJSON_AddStringToObject(doc, "input", o.input);
+        cJSON_AddStringToObject(doc, "energy_unit", "kcal/mol");
+        cJSON_AddStringToObject(doc, "gradient_unit", "kcal/mol/angstrom");
+        cJSON_AddStringToObject(doc, "wavenumber_unit", "cm^-1");
+        cJSON_AddStringToObject(doc, "reduced_mass_unit", "amu");
     }
 
     for (;;) {
@@ -581,9 +616,12 @@ int cmd_modes(int argc, char **argv)
         memset(&r, 0, sizeof r);
         bound b;
         memset(&b, 0, sizeof b);
+        int read_failed = s != ND_OK; /* the reader's message names file and record */
         if (s == ND_OK && (mol.natoms == 0 || mol.dimension != 3))
-            s = nd_fail(&err, ND_EINPUT, "%s, record %d: needs 3D coordinates (%s)", o.input, record,
-                        mol.natoms == 0 ? "no atoms" : "the record is not 3D");
+            s = nd_fail(&err, ND_EINPUT, "needs 3D coordinates (%s)",
+                        mol.natoms == 0 ? "no atoms"
+                        : mol.dimension == 2 ? "the record is a 2D drawing"
+                                             : "the record has none");
         if (s == ND_OK && o.frozen_list) {
             free(frozen);
             frozen = malloc(sizeof(int) * (size_t)mol.natoms);
@@ -600,6 +638,12 @@ int cmd_modes(int argc, char **argv)
                 external_message(&b, &err);
         }
         if (s == ND_OK) {
+            if (not_stationary(&r.check))
+                fprintf(stderr,
+                        "nadir %s: %s, record %d: residual gradient %.3g kcal/mol/A (rms) is above "
+                        "%g: not a stationary point of this potential, so its frequencies and "
+                        "thermochemistry mean little; use --relax\n",
+                        CMD, nd_reader_name(rd), record, r.check.grad_rms, NOT_STATIONARY_RMS);
             if (!o.json)
                 print_record(&o, record, &mol, &r);
             if (records) {
@@ -611,7 +655,11 @@ int cmd_modes(int argc, char **argv)
                 s = animate(&o, anim, record, &mol, &r, &err);
             if (s == ND_OK && wout) {
                 char buf[32];
-                nd_molecule_set_data(&mol, "modes_verdict", r.check.verdict == ND_VERDICT_MINIMUM ? "minimum" : "saddle", NULL);
+                nd_molecule_set_data(&mol, "modes_verdict",
+                                     not_stationary(&r.check)                 ? "not stationary"
+                                     : r.check.verdict == ND_VERDICT_MINIMUM ? "minimum"
+                                                                              : "saddle",
+                                     NULL);
                 snprintf(buf, sizeof buf, "%d", r.check.nimag);
                 nd_molecule_set_data(&mol, "modes_imaginary", buf, NULL);
                 s = nd_writer_write(wout, &mol, &err);
@@ -629,7 +677,15 @@ int cmd_modes(int argc, char **argv)
         }
         failed++;
         last_fail = s;
-        fprintf(stderr, "nadir %s: record %d: %s\n", CMD, record, err.msg[0] ? err.msg : nd_status_name(s));
+        if (read_failed)
+            fprintf(stderr, "nadir %s: %s\n", CMD, err.msg[0] ? err.msg : nd_status_name(s));
+        else {
+            char close[96] = "";
+            if (s == ND_ECOMPUTE)
+                cli_close_contact(&mol, close, sizeof close);
+            fprintf(stderr, "nadir %s: %s, record %d: %s%s\n", CMD, nd_reader_name(rd), record,
+                    err.msg[0] ? err.msg : nd_status_name(s), close);
+        }
         if (failures) {
             cJSON *fj = cJSON_CreateObject();
             if (fj) {

@@ -217,8 +217,12 @@ static int parse_frozen(const char *list, int n, unsigned char *flags, nd_error 
                 return nd_fail(err, ND_EINPUT, "--frozen '%s': a range needs two numbers", list);
             p = end;
         }
-        if (a < 1 || b < a || b > n)
-            return nd_fail(err, ND_EINPUT, "--frozen '%s': atoms %ld-%ld outside 1..%d", list, a, b, n);
+        if (b < a)
+            return nd_fail(err, ND_EINPUT, "--frozen '%s': range %ld-%ld runs backwards", list, a,
+                           b);
+        if (a < 1 || b > n)
+            return nd_fail(err, ND_EINPUT, "--frozen '%s': atom %ld is outside 1..%d (the record's atoms)",
+                           list, a < 1 ? a : b, n);
         for (long i = a; i <= b; i++)
             flags[i - 1] = 1;
         if (*p == ',')
@@ -390,7 +394,8 @@ static void optimise_record(const opt_options *o, const nd_model *model, record_
         goto out;
     }
     if (mol->dimension != 3 && n > 1) {
-        s = nd_fail(err, ND_EINPUT, "the record has no 3D coordinates");
+        s = nd_fail(err, ND_EINPUT, "the record has no 3D coordinates (%s); nadir build makes "
+                    "them from SMILES", mol->dimension == 2 ? "a 2D drawing" : "none at all");
         goto out;
     }
     if ((s = bind(o, model, mol, &b, err)) != ND_OK)
@@ -413,6 +418,11 @@ static void optimise_record(const opt_options *o, const nd_model *model, record_
                 nd_restraints_freeze(rs, i, NULL);
                 w->nfrozen++;
             }
+        if (w->nfrozen == n) {
+            s = nd_fail(err, ND_EINPUT, "--frozen '%s' fixes all %d atoms; nothing is left to relax",
+                        o->frozen_list, n);
+            goto out;
+        }
     }
     int tors_index = -1;
     if (o->scan_list) {
@@ -566,6 +576,12 @@ int cmd_optimize(int argc, char **argv)
     int rc = parse(argc, argv, &o);
     if (rc != 0)
         return rc < 0 ? ND_EXIT_OK : rc;
+    if ((rc = cli_check_output(CMD, "--report", o.report)) != 0)
+        return rc;
+    if ((o.output && strcmp(o.output, "-") == 0) || (o.trajectory && strcmp(o.trajectory, "-") == 0))
+        return cli_usage(CMD, "%s -: standard output carries the table (or --json); give a file "
+                              "name ending in .xyz or .sdf",
+                         o.output && strcmp(o.output, "-") == 0 ? "-o" : "--trajectory");
     char mpath[PATH_MAX + 64];
     if (!o.command) {
         if (o.model)
@@ -675,8 +691,15 @@ int cmd_optimize(int argc, char **argv)
             char title[200]; /* a copy: scans rename the record below */
             snprintf(title, sizeof title, "%.199s", wk->mol.title ? wk->mol.title : "");
             if (s != ND_OK) {
-                fprintf(stderr, "nadir %s: %s, record %d: %s\n", CMD, nd_reader_name(r), wk->record,
-                        wk->err.msg[0] ? wk->err.msg : nd_status_name(s));
+                if (wk->read_status != ND_OK) /* the reader's message names file and record */
+                    fprintf(stderr, "nadir %s: %s\n", CMD, wk->err.msg);
+                else {
+                    char close[96] = "";
+                    if (s == ND_ECOMPUTE)
+                        cli_close_contact(&wk->mol, close, sizeof close);
+                    fprintf(stderr, "nadir %s: %s, record %d: %s%s\n", CMD, nd_reader_name(r),
+                            wk->record, wk->err.msg[0] ? wk->err.msg : nd_status_name(s), close);
+                }
                 cJSON *f = cJSON_CreateObject();
                 cJSON_AddItemToArray(failures, f);
                 cJSON_AddNumberToObject(f, "record", wk->record);
@@ -744,7 +767,7 @@ int cmd_optimize(int argc, char **argv)
                 snprintf(result, sizeof result, "%s", s == ND_OK ? "converged" : s == ND_CONTINUE ? "NOT CONVERGED" : "FAILED");
                 if (!scan)
                     snprintf(result + strlen(result), sizeof result - strlen(result), " (%s)", nd_stop_name(last->r.why));
-                printf("%6d  %-24.24s  %5d  %16.6f  %10.4g  %6d  %6d  %s\n", wk->record, title, n,
+                printf("%6d  %-24.24s  %5d  %16.6f  %10.5f  %6d  %6d  %s\n", wk->record, title, n,
                        scan ? emin : last->energy, last->r.max_force, steps, calls, result);
                 if (scan) {
                     printf("        %10s  %10s  %16s  %10s  %6s  %s\n", "target", "torsion", "energy", "relative",
@@ -765,7 +788,7 @@ int cmd_optimize(int argc, char **argv)
                 for (int f = 0; f < wk->nframes; f++) {
                     char t[256];
                     memcpy(fr.xyz, wk->frames + (size_t)f * 3 * (size_t)n, 3 * (size_t)n * sizeof(double));
-                    snprintf(t, sizeof t, "%s frame %d energy %.6f", title, f, wk->frame_e[f]);
+                    snprintf(t, sizeof t, "%s frame %d energy %.6f kcal/mol", title, f, wk->frame_e[f]);
                     if (nd_molecule_set_title(&fr, t, &err) != ND_OK || nd_writer_write(tw, &fr, &err) != ND_OK) {
                         nd_molecule_free(&fr);
                         rc = cli_error(CMD, &err);
@@ -789,6 +812,7 @@ int cmd_optimize(int argc, char **argv)
                     if (label(&wk->mol, p, &err) != ND_OK)
                         goto nomem;
                     if (nd_writer_write(w, &wk->mol, &err) != ND_OK) {
+                        nd_error_prefix(&err, "%s, record %d", nd_reader_name(r), wk->record);
                         rc = cli_error(CMD, &err);
                         goto out;
                     }
@@ -828,7 +852,8 @@ int cmd_optimize(int argc, char **argv)
     }
     int bad = unconverged + failed_input + failed_compute;
     if (!o.json && done + unconverged > 0)
-        printf("energies in kcal/mol, forces in kcal/mol/angstrom; method %s%s\n", o.method->name,
+        printf("energies in kcal/mol, forces in kcal/mol/angstrom%s; method %s%s\n",
+               o.scan_list ? ", torsions in degrees" : "", o.method->name,
                o.method == &nd_minimizer_lbfgs && !o.no_precond ? " with the Lindh model-Hessian preconditioner" : "");
     if (bad > 0) {
         fprintf(stderr, "nadir %s: %d record%s converged, %d not converged, %d failed\n", CMD, done,

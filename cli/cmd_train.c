@@ -299,6 +299,44 @@ static void progress_line(const nd_train_epoch_report *r, double elapsed, double
     fflush(stderr);
 }
 
+/* Warns about splits that would mislead: far more molecules held out than
+ * asked (a dataset of few molecules), and elements met only in validation
+ * molecules (their networks never see a training structure). */
+static void split_warnings(const nd_train *t, const nd_dataset *d, const nd_train_split_info *si,
+                           double fraction)
+{
+    int nmol = si->train_molecules + si->valid_molecules;
+    if (si->valid_molecules > 0 && nmol > 0 &&
+        (double)si->valid_molecules > 2.0 * fraction * (double)nmol + 0.5)
+        fprintf(stderr,
+                "nadir train: warning: %d of %d molecules (%.0f%%) held out for validation, more "
+                "than the --validation-fraction %g asked: the dataset has few molecules\n",
+                si->valid_molecules, nmol, 100.0 * si->valid_molecules / nmol, fraction);
+    unsigned char in_train[ND_MAX_Z + 1] = {0}, in_valid[ND_MAX_Z + 1] = {0};
+    long n;
+    const long *idx = nd_train_training_set(t, &n);
+    nd_dataset_entry e;
+    for (long i = 0; i < n; i++) {
+        nd_dataset_get(d, idx[i], &e);
+        for (int a = 0; a < e.natoms; a++)
+            if (e.z[a] >= 1 && e.z[a] <= ND_MAX_Z)
+                in_train[e.z[a]] = 1;
+    }
+    idx = nd_train_validation_set(t, &n);
+    for (long i = 0; i < n; i++) {
+        nd_dataset_get(d, idx[i], &e);
+        for (int a = 0; a < e.natoms; a++)
+            if (e.z[a] >= 1 && e.z[a] <= ND_MAX_Z)
+                in_valid[e.z[a]] = 1;
+    }
+    for (int z = 1; z <= ND_MAX_Z; z++)
+        if (in_valid[z] && !in_train[z])
+            fprintf(stderr,
+                    "nadir train: warning: element %s is only in validation molecules; the "
+                    "model learns nothing about it (add molecules with %s, or change --seed)\n",
+                    nd_element_symbol(z), nd_element_symbol(z));
+}
+
 int cmd_train(int argc, char **argv)
 {
     train_options o;
@@ -338,14 +376,17 @@ int cmd_train(int argc, char **argv)
     nd_train_split(t, &si);
     if (!o.quiet) {
         fprintf(stderr,
-                "nadir train: %ld structures of %d molecules; training %ld (%d molecules), "
-                "validation %ld (%d molecules); %d members\n",
-                nd_dataset_count(d), nd_dataset_key_count(d), si.train_structures,
-                si.train_molecules, si.valid_structures, si.valid_molecules, o.cfg.members);
+                "nadir train: %ld structures of %d molecule%s; training %ld (%d molecule%s), "
+                "validation %ld (%d molecule%s); %d member%s\n",
+                nd_dataset_count(d), nd_dataset_key_count(d),
+                nd_dataset_key_count(d) == 1 ? "" : "s", si.train_structures, si.train_molecules,
+                si.train_molecules == 1 ? "" : "s", si.valid_structures, si.valid_molecules,
+                si.valid_molecules == 1 ? "" : "s", o.cfg.members, o.cfg.members == 1 ? "" : "s");
         if (o.resume)
             fprintf(stderr, "nadir train: resuming after epoch %d from %s\n",
                     nd_train_epochs_done(t), state);
     }
+    split_warnings(t, d, &si, o.cfg.validation_fraction);
     double before = nd_train_elapsed(t), start = nd_progress_clock();
     int done0 = nd_train_epochs_done(t);
     nd_train_epoch_report r;

@@ -45,6 +45,15 @@ int main(int argc, char **argv)
         return ND_EXIT_USAGE;
     }
     const char *word = argv[1];
+    if (strcmp(word, "help") == 0 && argc >= 3) { /* nadir help COMMAND = nadir COMMAND --help */
+        for (size_t i = 0; i < sizeof COMMANDS / sizeof COMMANDS[0]; i++)
+            if (strcmp(argv[2], COMMANDS[i].word) == 0) {
+                char *args[] = {argv[2], "--help", NULL};
+                return COMMANDS[i].fn(2, args);
+            }
+        fprintf(stderr, "nadir: unknown command '%s' (see: nadir --help)\n", argv[2]);
+        return ND_EXIT_USAGE;
+    }
     if (strcmp(word, "--help") == 0 || strcmp(word, "-h") == 0 || strcmp(word, "help") == 0) {
         print_help(stdout);
         return ND_EXIT_OK;

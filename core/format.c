@@ -100,6 +100,10 @@ static nd_format sniff(const unsigned char *head, size_t n, const char **why)
 {
     char line[256];
     *why = "";
+    if (n >= 3 && memcmp(head, "\xef\xbb\xbf", 3) == 0) { /* a UTF-8 byte-order mark */
+        head += 3;
+        n -= 3;
+    }
     if (head_line(head, n, 3, line, sizeof line) && strlen(line) >= 39 &&
         (strncmp(line + 34, "V2000", 5) == 0 || strncmp(line + 34, "V3000", 5) == 0)) {
         *why = "line 4 is an SD counts line";
@@ -471,7 +475,9 @@ int nd_writer_write(nd_writer *w, const nd_molecule *mol, nd_error *err)
     }
     }
     if (s != ND_OK) {
-        nd_error_prefix(err, "%s, record %d", where, w->records + 1);
+        /* a record that cannot be written is not in the output: name the file
+         * only (callers add where the record came from) */
+        nd_error_prefix(err, "cannot write to %s", where);
         return s;
     }
     w->records++;

@@ -94,6 +94,10 @@ int nd_lines_next(nd_lines *l, nd_error *err)
     l->lineno++;
     while (l->len > 0 && l->buf[l->len - 1] == '\r') /* CRLF, or stray CRs before it */
         l->len--;
+    if (l->lineno == 1 && l->len >= 3 && memcmp(l->buf, "\xef\xbb\xbf", 3) == 0) {
+        memmove(l->buf, l->buf + 3, l->len - 3); /* a UTF-8 byte-order mark (Windows editors) */
+        l->len -= 3;
+    }
     if (append(l, '\0') != 0)
         return nd_fail(err, ND_ENOMEM, "%s, line %ld: out of memory reading a line", l->name,
                        l->lineno);

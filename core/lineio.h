@@ -4,8 +4,9 @@
  * A line source reads from a memory buffer (the sniffed head of a file, or a
  * whole buffer for the fuzzers) and then, if one is given, from a FILE. It
  * numbers lines from 1, strips the line end ("\n" and any "\r" just before
- * it), lets the caller push back one line, refuses lines longer
- * than ND_LINE_MAX bytes and lines holding a NUL byte (binary data), and
+ * it) and a UTF-8 byte-order mark at the start of the first line, lets
+ * the caller push back one line, refuses lines longer than ND_LINE_MAX
+ * bytes and lines holding a NUL byte (binary data), and
  * formats error messages as "FILE, UNIT N, line L: ...". */
 #ifndef ND_LINEIO_H
 #define ND_LINEIO_H

@@ -550,8 +550,13 @@ static int parse_grammar(parser *p)
                 rc = perr(p, col,
                           "unknown element '%s' (outside [ ] only B C N O P S F Cl Br I and "
                           "aromatic b c n o p s)", what);
-            else
+            else if (c > ' ' && c < 0x7f)
                 rc = perr(p, col, "unexpected character '%s'", what);
+            else {
+                char hex[8];
+                snprintf(hex, sizeof hex, "0x%02X", (unsigned)(unsigned char)c);
+                rc = perr(p, col, "unexpected byte %s (not a SMILES character)", hex);
+            }
             goto done;
         }
         if (bond.quad) {

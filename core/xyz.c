@@ -290,8 +290,8 @@ int nd_xyz_write(FILE *f, const nd_molecule *mol, nd_error *err)
                        mol->title ? mol->title : "");
     if (mol->dimension == 0)
         return nd_fail(err, ND_EINPUT,
-                       "molecule '%.60s' has no coordinates; XYZ needs 3D coordinates (generate "
-                       "them first)",
+                       "molecule '%.60s' has no coordinates; XYZ needs 3D coordinates (make "
+                       "them with nadir build)",
                        mol->title ? mol->title : "");
     for (int i = 0; i < mol->natoms; i++) {
         if (mol->z[i] < 1 || mol->z[i] > ND_MAX_Z)

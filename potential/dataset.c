@@ -1562,6 +1562,23 @@ int nd_dataset_writer_open(nd_dataset_writer **out, const char *path, long *drop
         return nd_fail(err, ND_EIO, "%s: not a regular file", path);
     }
     off_t size = st.st_size;
+    /* Append only to what looks like a dataset (JSON lines): the cut of a
+     * partial last line below must never touch another kind of file. */
+    if (size > 0) {
+        unsigned char first[512];
+        ssize_t got = pread(fd, first, sizeof first, 0);
+        ssize_t i = 0;
+        while (i < got && (first[i] == ' ' || first[i] == '\t' || first[i] == '\r' || first[i] == '\n'))
+            i++;
+        int binary = memchr(first, 0, got > 0 ? (size_t)got : 0) != NULL;
+        if (got <= 0 || binary || (i < got && first[i] != '{')) {
+            close(fd);
+            return nd_fail(err, ND_EINPUT,
+                           "%s: not a dataset (its first line is not a JSON object); refusing to "
+                           "append to it",
+                           path);
+        }
+    }
     /* Find the end of the last whole line by reading backwards in blocks. */
     off_t keep = size;
     if (size > 0) {

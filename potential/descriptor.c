@@ -1,5 +1,12 @@
 /* Behler-Parrinello symmetry functions and their contracted derivatives.
- * See descriptor.h for the definitions and the feature layout. */
+ * See descriptor.h for the definitions and the feature layout.
+ *
+ * Speed: the per-pair loops over Gaussians and angular sets are written to
+ * be vectorised (nd_exp, "omp simd"); -fno-trapping-math lets GCC turn the
+ * comparisons inside them into selects. It changes no result: it only
+ * declares that the program does not inspect the floating-point exception
+ * flags. (sqrt stays out of the vectorised loops: with errno it is a call.) */
+#pragma GCC optimize("no-trapping-math")
 #include "potential/descriptor.h"
 
 #include <math.h>
@@ -85,11 +92,15 @@ double nd_descriptor_cutoff(double r, double rc, double *d1, double *d2)
     return u * u * u * (1 + 3 * t + 6 * t * t);
 }
 
+static size_t radial_scratch(int nn);
+
 size_t nd_descriptor_scratch_doubles(const nd_descriptor_params *p, int nel, int maxnn)
 {
     size_t nn = (size_t)(maxnn > 0 ? maxnn : 1);
-    return nn * (size_t)(4 + 2 * p->nangular + 6) +
-           2 * (size_t)(nel * (nel + 1) / 2) * (size_t)p->nangular;
+    size_t ang = nn * (size_t)(4 + 2 * p->nangular + 6) +
+                 2 * (size_t)(nel * (nel + 1) / 2) * (size_t)p->nangular;
+    size_t rad = radial_scratch(maxnn);
+    return ang > rad ? ang : rad;
 }
 
 /* Gathers the neighbours of i inside the angular cutoff, grouped by element
@@ -141,7 +152,7 @@ static int angular_setup(const nd_descriptor_params *p, int nel, const double *x
                 dd[n] = dd[n - 1];
                 continue;
             }
-            double ex = exp(-p->angular_eta[n] * r2);
+            double ex = nd_exp(-p->angular_eta[n] * r2);
             ee[n] = ex * fc;
             dd[n] = ex * (dfc - 2 * p->angular_eta[n] * r * fc);
         }
@@ -218,73 +229,245 @@ grad_block(int na, int zmax, const int *off, const double *ga, const double *geo
     }
 }
 
-/* The radial Gaussians g_m = exp(-eta_m (r - s_m)^2) for m = 0 .. nr-1.
+/* The radial Gaussians g_m = exp(-eta_m (r - s_m)^2), m = 0 .. nr-1.
+ *
  * When every eta is the same and the centres are evenly spaced (our
- * defaults), they come from three exponentials by the exact recurrence
- * g_{m+1} = g_m rho_m, rho_{m+1} = rho_m kappa (rho_m = exp(-eta d (2 (s_m - r) + d)),
- * kappa = exp(-2 eta d^2)), started at the centre nearest r and run both
- * ways, so nothing overflows and only negligible values underflow; the
- * result agrees with direct evaluation to a few ulps. Otherwise each is
- * evaluated directly. */
-static void radial_gaussians(const nd_descriptor_params *p, int uniform, double kappa, double r,
-                             double *g)
+ * defaults), they come from three exponentials per pair by the exact
+ * recurrence g_{m+1} = g_m rho_m, rho_{m+1} = rho_m kappa
+ * (rho_m = exp(-eta d (2 (s_m - r) + d)), kappa = exp(-2 eta d^2)), started
+ * at the centre c nearest r and run both ways: g_c = exp(-eta u^2) with
+ * u = r - s_c, up = exp(-eta d (d - 2u)) = g_{c+1}/g_c and
+ * down = exp(-eta d (d + 2u)) = g_{c-1}/g_c. Every exponent stays small
+ * (|u| <= d/2 inside the grid), nothing overflows, only negligible values
+ * underflow, and the result agrees with direct evaluation to a few ulps.
+ * The three exponentials of all pairs of an atom are computed in one loop
+ * the compiler vectorises (radial_setup); the recurrences are scalar.
+ * Otherwise each g_m is evaluated directly (vectorised over m). */
+typedef struct radial_grid {
+    int uniform;
+    double eta, s0, d, kappa;
+} radial_grid;
+
+/* Whether the radial set is uniform (one eta, evenly spaced centres to
+ * 1e-12 relative), and its constants. */
+static radial_grid radial_grid_of(const nd_descriptor_params *p)
 {
+    radial_grid g = {0, 0, 0, 1, 1};
     const int nr = p->nradial;
-    if (!uniform) {
-        for (int m = 0; m < nr; m++) {
-            double d = r - p->radial_shift[m];
-            g[m] = exp(-p->radial_eta[m] * d * d);
-        }
+    if (nr < 3)
+        return g;
+    double d = p->radial_shift[1] - p->radial_shift[0];
+    if (!(d > 0))
+        return g;
+    for (int m = 1; m < nr; m++) {
+        if (p->radial_eta[m] != p->radial_eta[0])
+            return g;
+        double dm = p->radial_shift[m] - p->radial_shift[m - 1];
+        if (fabs(dm - d) > 1e-12 * d)
+            return g;
+    }
+    g.uniform = 1;
+    g.eta = p->radial_eta[0];
+    g.s0 = p->radial_shift[0];
+    g.d = d;
+    g.kappa = exp(-2 * g.eta * d * d);
+    return g;
+}
+
+/* Per-pair radial quantities of one centre, struct-of-arrays (each nn long). */
+typedef struct radial_pairs {
+    int cnt;              /* pairs kept */
+    int *idx;             /* their position in nbr */
+    double *r, *ux, *uy, *uz; /* distance and unit vector (x_j - x_i) / r */
+    double *fc, *dfc;     /* cutoff and its derivative */
+    double *cq, *g0, *up, *dn; /* uniform grids: nearest centre, g_c, up, down */
+} radial_pairs;
+
+/* Doubles of scratch radial_setup needs for nn neighbours. */
+static size_t radial_scratch(int nn) { return 11 * (size_t)(nn > 0 ? nn : 1); }
+
+/* Gathers the neighbours of i within the radial cutoff (skipping those
+ * with index below i when skip_lower) and computes their distances, unit
+ * vectors, cutoffs and, for a uniform grid, the three exponentials above.
+ * dscratch: radial_scratch(nn) doubles; idx: nn ints. */
+static void radial_setup(const nd_descriptor_params *p, const radial_grid *grid, const double *x,
+                         int i, const int *nbr, int nn, int skip_lower, double *dscratch, int *idx,
+                         radial_pairs *rp)
+{
+    const double rc = p->radial_cutoff, rc2 = rc * rc;
+    const double *xi = x + 3 * (size_t)i;
+    size_t n = (size_t)(nn > 0 ? nn : 1);
+    rp->idx = idx;
+    rp->r = dscratch;
+    rp->ux = rp->r + n;
+    rp->uy = rp->ux + n;
+    rp->uz = rp->uy + n;
+    rp->fc = rp->uz + n;
+    rp->dfc = rp->fc + n;
+    rp->cq = rp->dfc + n;
+    rp->g0 = rp->cq + n;
+    rp->up = rp->g0 + n;
+    rp->dn = rp->up + n;
+    double *r = rp->r, *ux = rp->ux, *uy = rp->uy, *uz = rp->uz;
+    int cnt = 0;
+    for (int s = 0; s < nn; s++) {
+        int j = nbr[s];
+        const double *xj = x + 3 * (size_t)j;
+        double dx = xj[0] - xi[0], dy = xj[1] - xi[1], dz = xj[2] - xi[2];
+        double r2 = dx * dx + dy * dy + dz * dz;
+        if (r2 >= rc2 || (skip_lower && j < i))
+            continue;
+        idx[cnt] = s;
+        r[cnt] = sqrt(r2);
+        ux[cnt] = dx;
+        uy[cnt] = dy;
+        uz[cnt] = dz;
+        cnt++;
+    }
+    rp->cnt = cnt;
+    double *fc = rp->fc, *dfc = rp->dfc;
+#pragma omp simd
+    for (int q = 0; q < cnt; q++) {
+        double rr = r[q], inv = 1 / rr;
+        ux[q] *= inv;
+        uy[q] *= inv;
+        uz[q] *= inv;
+        /* nd_descriptor_cutoff for r < rc */
+        double t = rr / rc, v = 1 - t;
+        fc[q] = v * v * v * (1 + 3 * t + 6 * t * t);
+        dfc[q] = -30 * t * t * v * v / rc;
+    }
+    if (!grid->uniform)
         return;
-    }
-    const double eta = p->radial_eta[0], s0 = p->radial_shift[0];
-    const double dlt = nr > 1 ? p->radial_shift[1] - s0 : 1;
-    int c = (int)floor((r - s0) / dlt + 0.5);
-    if (c < 0)
-        c = 0;
-    if (c > nr - 1)
-        c = nr - 1;
-    double sc = p->radial_shift[c], u = r - sc;
-    g[c] = exp(-eta * u * u);
-    double up = 0;
-    if (c + 1 < nr) {
-        double rho = up = exp(-eta * dlt * (dlt - 2 * u)); /* g_{c+1} / g_c */
-        for (int m = c + 1; m < nr; m++) {
-            g[m] = g[m - 1] * rho;
-            rho *= kappa;
-        }
-    }
-    if (c > 0) {
-        /* g_{c-1} / g_c = exp(-eta d (d + 2u)); inside the grid |u| <= d/2,
-         * so it equals kappa / up with up well away from 0 */
-        double rho = c + 1 < nr ? kappa / up : exp(-eta * dlt * (dlt + 2 * u));
-        for (int m = c - 1; m >= 0; m--) {
-            g[m] = g[m + 1] * rho;
-            rho *= kappa;
-        }
+    const double eta = grid->eta, s0 = grid->s0, d = grid->d, cmax = p->nradial - 1;
+    double *cq = rp->cq, *g0 = rp->g0, *up = rp->up, *dn = rp->dn;
+#pragma omp simd
+    for (int q = 0; q < cnt; q++) {
+        /* nearest centre: (r - s0) / d rounded to an integer (by adding and
+         * subtracting 1.5 2^52), kept inside 0 .. nr-1 */
+        double c = ((r[q] - s0) / d + 0x1.8p52) - 0x1.8p52;
+        c = c > 0 ? c : 0;
+        c = c < cmax ? c : cmax;
+        double u = r[q] - (s0 + c * d);
+        double au = -eta * d * (d - 2 * u), ad = -eta * d * (d + 2 * u);
+        cq[q] = c;
+        g0[q] = nd_exp(-eta * u * u);
+        /* the ratio not used at the ends of the grid may be huge: capped */
+        up[q] = nd_exp(au < 700 ? au : 700);
+        dn[q] = nd_exp(ad < 700 ? ad : 700);
     }
 }
 
-/* Whether the radial set is uniform (one eta, evenly spaced centres to
- * 1e-12 relative); *kappa = exp(-2 eta d^2) then. */
-static int radial_uniform(const nd_descriptor_params *p, double *kappa)
+/* The nr Gaussians of pair q of rp into g. */
+static inline void radial_values(const nd_descriptor_params *p, const radial_grid *grid,
+                                 const radial_pairs *rp, int q, double *g)
 {
     const int nr = p->nradial;
-    *kappa = 1;
-    if (nr < 3)
-        return 0;
-    double d = p->radial_shift[1] - p->radial_shift[0];
-    if (!(d > 0))
-        return 0;
-    for (int m = 1; m < nr; m++) {
-        if (p->radial_eta[m] != p->radial_eta[0])
-            return 0;
-        double dm = p->radial_shift[m] - p->radial_shift[m - 1];
-        if (fabs(dm - d) > 1e-12 * d)
-            return 0;
+    if (!grid->uniform) {
+        const double *eta = p->radial_eta, *shift = p->radial_shift, r = rp->r[q];
+#pragma omp simd
+        for (int m = 0; m < nr; m++) {
+            double dd = r - shift[m];
+            g[m] = nd_exp(-eta[m] * dd * dd);
+        }
+        return;
     }
-    *kappa = exp(-2 * p->radial_eta[0] * d * d);
-    return 1;
+    const double kappa = grid->kappa;
+    int c = (int)rp->cq[q];
+    double gc = rp->g0[q];
+    g[c] = gc;
+    double gm = gc, rho = rp->up[q];
+    for (int m = c + 1; m < nr; m++) {
+        gm *= rho;
+        rho *= kappa;
+        g[m] = gm;
+    }
+    gm = gc;
+    rho = rp->dn[q];
+    for (int m = c - 1; m >= 0; m--) {
+        gm *= rho;
+        rho *= kappa;
+        g[m] = gm;
+    }
+}
+
+/* Whether p's angular sets are exactly our defaults (nd_descriptor_defaults:
+ * zeta 1, 1, 4, 4, 2; lambda +1, -1, +1, -1, +1; the first four sharing one
+ * eta). Those get the straight-line kernels below, with the powers of
+ * 1 +- cos theta written out; any other set takes the general loops. */
+static int angular_default(const nd_descriptor_params *p)
+{
+    static const int zeta[5] = {1, 1, 4, 4, 2}, lambda[5] = {1, -1, 1, -1, 1};
+    if (p->nangular != 5)
+        return 0;
+    for (int n = 0; n < 5; n++)
+        if (p->angular_zeta[n] != zeta[n] || p->angular_lambda[n] != lambda[n])
+            return 0;
+    return p->angular_eta[1] == p->angular_eta[0] && p->angular_eta[2] == p->angular_eta[0] &&
+           p->angular_eta[3] == p->angular_eta[0];
+}
+
+/* fwd_block for the default sets: e_b[0] (= e_b[1..3]) and e_b[4]. The
+ * same sums as fwd_block, term by term (powers formed by squaring, so the
+ * bits may differ from the general loop's repeated products in the last place). */
+static inline void fwd_block_default(const double *ga, const double *geo, const double *e, int b0,
+                                     int b1, double *S)
+{
+    double s0 = 0, s1 = 0, s2 = 0, s3 = 0, s4 = 0;
+    for (int b = b0; b < b1; b++) {
+        const double *gb = geo + 4 * (size_t)b, *eb = e + (size_t)b * 5;
+        double c = ga[1] * gb[1] + ga[2] * gb[2] + ga[3] * gb[3];
+        double p1 = 1 + c, m1 = 1 - c, p2 = p1 * p1, m2 = m1 * m1;
+        double e0 = eb[0], e1 = eb[4];
+        s0 += p1 * e0;
+        s1 += m1 * e0;
+        s2 += p2 * p2 * e0;
+        s3 += m2 * m2 * e0;
+        s4 += p2 * e1;
+    }
+    S[0] = s0;
+    S[1] = s1;
+    S[2] = s2;
+    S[3] = s3;
+    S[4] = s4;
+}
+
+/* grad_block for the default sets (see fwd_block_default). */
+static inline void grad_block_default(const double *ga, const double *geo, const double *e,
+                                      const double *de, const double *ha, const double *hb,
+                                      const double *hc, double *aa, double *acc, int b0, int b1)
+{
+    double a0 = 0, a1 = 0, a2 = 0, a3 = 0, a4 = 0;
+    for (int b = b0; b < b1; b++) {
+        const double *gb = geo + 4 * (size_t)b, *eb = e + (size_t)b * 5,
+                     *deb = de + (size_t)b * 5;
+        double c = ga[1] * gb[1] + ga[2] * gb[2] + ga[3] * gb[3];
+        double p1 = 1 + c, m1 = 1 - c, p2 = p1 * p1, m2 = m1 * m1;
+        double p3 = p2 * p1, m3 = m2 * m1, p4 = p2 * p2, m4 = m2 * m2;
+        double e0 = eb[0], e1 = eb[4], d0 = deb[0], d1 = deb[4];
+        /* dT/dcos (zeta lambda (1 + lambda c)^(zeta - 1), the factor zeta
+         * lambda is in ha), dT/dr_a, dT/dr_b */
+        double A = (ha[0] + ha[1] + ha[2] * p3 + ha[3] * m3) * e0 + ha[4] * p1 * e1;
+        double Ba = (hb[0] * p1 + hb[1] * m1 + hb[2] * p4 + hb[3] * m4) * e0 + hb[4] * p2 * e1;
+        double Bb = (hc[0] * p1 + hc[1] * m1 + hc[2] * p4 + hc[3] * m4) * d0 + hc[4] * p2 * d1;
+        double *bb = acc + 5 * (size_t)b;
+        double Ac = A * c;
+        a0 += Ba;
+        a1 += A * gb[1];
+        a2 += A * gb[2];
+        a3 += A * gb[3];
+        a4 += Ac;
+        bb[0] += Bb;
+        bb[1] += A * ga[1];
+        bb[2] += A * ga[2];
+        bb[3] += A * ga[3];
+        bb[4] += Ac;
+    }
+    aa[0] += a0;
+    aa[1] += a1;
+    aa[2] += a2;
+    aa[3] += a3;
+    aa[4] += a4;
 }
 
 /* Index of the unordered element pair (a, b) among nel elements. */
@@ -304,21 +487,13 @@ void nd_descriptor_atom(const nd_descriptor_params *p, int nel, const double *x,
     const int nr = p->nradial, na = p->nangular;
     const int D = nd_descriptor_size(p, nel);
     memset(G, 0, sizeof(double) * (size_t)D);
-    const double rc = p->radial_cutoff, rc2 = rc * rc;
-    const double *xi = x + 3 * (size_t)i;
-    double kappa, gm[ND_DESC_MAX_RADIAL];
-    int uni = radial_uniform(p, &kappa);
-    for (int s = 0; s < nn; s++) {
-        int j = nbr[s];
-        const double *xj = x + 3 * (size_t)j;
-        double dx = xj[0] - xi[0], dy = xj[1] - xi[1], dz = xj[2] - xi[2];
-        double r2 = dx * dx + dy * dy + dz * dz;
-        if (r2 >= rc2)
-            continue;
-        double r = sqrt(r2);
-        double fc = nd_descriptor_cutoff(r, rc, NULL, NULL);
-        double *g = G + (size_t)species[j] * nr;
-        radial_gaussians(p, uni, kappa, r, gm);
+    radial_grid grid = radial_grid_of(p);
+    radial_pairs rp;
+    radial_setup(p, &grid, x, i, nbr, nn, 0, dscratch, iscratch, &rp);
+    for (int q = 0; q < rp.cnt; q++) {
+        double gm[ND_DESC_MAX_RADIAL], fc = rp.fc[q];
+        radial_values(p, &grid, &rp, q, gm);
+        double *g = G + (size_t)species[nbr[rp.idx[q]]] * nr;
         for (int m = 0; m < nr; m++)
             g[m] += gm[m] * fc;
     }
@@ -330,7 +505,7 @@ void nd_descriptor_atom(const nd_descriptor_params *p, int nel, const double *x,
     int cnt = angular_setup(p, nel, x, species, i, nbr, nn, geo, e, de, iscratch, block, tmp);
     double *GA = G + (size_t)nel * nr;
     double norm[ND_DESC_MAX_ANGULAR];
-    int zmax = 0, off[ND_DESC_MAX_ANGULAR];
+    int zmax = 0, off[ND_DESC_MAX_ANGULAR], dflt = angular_default(p);
     for (int n = 0; n < na; n++) {
         norm[n] = ldexp(1.0, 1 - p->angular_zeta[n]);
         zmax = p->angular_zeta[n] > zmax ? p->angular_zeta[n] : zmax;
@@ -348,8 +523,8 @@ void nd_descriptor_atom(const nd_descriptor_params *p, int nel, const double *x,
             if (b0 >= b1)
                 continue;
             double S[ND_DESC_MAX_ANGULAR];
-            if (na == 5 && zmax == 4) /* the default set, with constant loop bounds */
-                fwd_block(5, 4, off, ga, geo, e, b0, b1, S);
+            if (dflt)
+                fwd_block_default(ga, geo, e, b0, b1, S);
             else
                 fwd_block(na, zmax, off, ga, geo, e, b0, b1, S);
             double *g = GA + (size_t)pair_index(za, zb, nel) * na;
@@ -370,43 +545,27 @@ static void atom_grad(const nd_descriptor_params *p, int nel, const double *x, c
                       int *iscratch)
 {
     const int nr = p->nradial, na = p->nangular;
-    const double rc = p->radial_cutoff, rc2 = rc * rc;
-    const double *xi = x + 3 * (size_t)i;
     if (nn > 0)
         memset(gj, 0, sizeof(double) * 3 * (size_t)nn);
-    double kappa, gm[ND_DESC_MAX_RADIAL];
-    int uni = radial_uniform(p, &kappa);
-    for (int s = 0; s < nn; s++) {
-        int j = nbr[s];
-        const double *xj = x + 3 * (size_t)j;
-        double dx = xj[0] - xi[0], dy = xj[1] - xi[1], dz = xj[2] - xi[2];
-        double r2 = dx * dx + dy * dy + dz * dz;
-        if (r2 >= rc2)
-            continue;
-        double r = sqrt(r2), dfc;
-        if (U && j < i)
-            continue;
-        double fc = nd_descriptor_cutoff(r, rc, &dfc, NULL);
-        double uu[ND_DESC_MAX_RADIAL];
+    const double *shift = p->radial_shift;
+    radial_grid grid = radial_grid_of(p);
+    radial_pairs rp;
+    radial_setup(p, &grid, x, i, nbr, nn, U != NULL, dscratch, iscratch, &rp);
+    for (int q = 0; q < rp.cnt; q++) {
+        int s = rp.idx[q], j = nbr[s];
+        double gm[ND_DESC_MAX_RADIAL], r = rp.r[q], fc = rp.fc[q], dfc = rp.dfc[q];
+        radial_values(p, &grid, &rp, q, gm);
         const double *ui = u + (size_t)species[j] * nr;
-        if (U) {
-            const double *uj = U + (size_t)row[j] * D + (size_t)species[i] * nr;
-            for (int m = 0; m < nr; m++)
-                uu[m] = ui[m] + uj[m];
-        } else {
-            for (int m = 0; m < nr; m++)
-                uu[m] = ui[m];
-        }
+        const double *uj = U ? U + (size_t)row[j] * D + (size_t)species[i] * nr : NULL;
+        /* dE/dr = sum_m w_m g_m (fc' - 2 eta_m (r - s_m) fc) */
         double dedr = 0;
-        radial_gaussians(p, uni, kappa, r, gm);
         for (int m = 0; m < nr; m++) {
-            double d = r - p->radial_shift[m];
-            dedr += uu[m] * gm[m] * (dfc - 2 * p->radial_eta[m] * d * fc);
+            double w = uj ? ui[m] + uj[m] : ui[m];
+            dedr += w * gm[m] * (dfc - 2 * p->radial_eta[m] * (r - shift[m]) * fc);
         }
-        double f = dedr / r;
-        gj[3 * s + 0] = f * dx;
-        gj[3 * s + 1] = f * dy;
-        gj[3 * s + 2] = f * dz;
+        gj[3 * s + 0] = dedr * rp.ux[q];
+        gj[3 * s + 1] = dedr * rp.uy[q];
+        gj[3 * s + 2] = dedr * rp.uz[q];
     }
     if (na > 0) {
         /* scratch: geometry, e, de, tmp, then per angular neighbour the sums
@@ -418,7 +577,7 @@ static void atom_grad(const nd_descriptor_params *p, int nel, const double *x, c
         int block[ND_DESC_MAX_ELEMENTS + 1];
         int cnt = angular_setup(p, nel, x, species, i, nbr, nn, geo, e, de, iscratch, block, tmp);
         const double *UA = u + (size_t)nel * nr;
-        int zmax = 0, off[ND_DESC_MAX_ANGULAR];
+        int zmax = 0, off[ND_DESC_MAX_ANGULAR], dflt = angular_default(p);
         for (int n = 0; n < na; n++) {
             zmax = p->angular_zeta[n] > zmax ? p->angular_zeta[n] : zmax;
             off[n] = (p->angular_lambda[n] > 0 ? ZS : 0) + p->angular_zeta[n];
@@ -455,8 +614,8 @@ static void atom_grad(const nd_descriptor_params *p, int nel, const double *x, c
                     hb[n] = wb[q + n] * dea[n];
                     hc[n] = wb[q + n] * ea[n];
                 }
-                if (na == 5 && zmax == 4)
-                    grad_block(5, 4, off, ga, geo, e, de, ha, hb, hc, aa, acc, b0, b1);
+                if (dflt)
+                    grad_block_default(ga, geo, e, de, ha, hb, hc, aa, acc, b0, b1);
                 else
                     grad_block(na, zmax, off, ga, geo, e, de, ha, hb, hc, aa, acc, b0, b1);
             }
@@ -490,4 +649,103 @@ void nd_descriptor_atom_grad_shared(const nd_descriptor_params *p, int nel, cons
 {
     atom_grad(p, nel, x, species, i, nbr, nn, U + (size_t)row[i] * D, U, row, D, gi, gj, dscratch,
               iscratch);
+}
+
+/* Forward-mode tangent v_i = sum_k J_ik r_k (see descriptor.h). Since G_i
+ * depends only on the vectors x_j - x_i, v_i = sum_j (dG_i/dx_j) (r_j - r_i):
+ * one pass over the pairs and triplets of i, with the radial Gaussians and
+ * the angular set-up of nd_descriptor_atom. */
+void nd_descriptor_atom_tangent(const nd_descriptor_params *p, int nel, const double *x,
+                                const int *species, int i, const int *nbr, int nn, const double *rt,
+                                double *v, double *dscratch, int *iscratch)
+{
+    const int nr = p->nradial, na = p->nangular;
+    const int D = nd_descriptor_size(p, nel);
+    memset(v, 0, sizeof(double) * (size_t)D);
+    const double *ri = rt + 3 * (size_t)i, *shift = p->radial_shift;
+    radial_grid grid = radial_grid_of(p);
+    radial_pairs rp;
+    radial_setup(p, &grid, x, i, nbr, nn, 0, dscratch, iscratch, &rp);
+    for (int q = 0; q < rp.cnt; q++) {
+        int j = nbr[rp.idx[q]];
+        const double *rj = rt + 3 * (size_t)j;
+        /* d r_ij along the tangent */
+        double drr = rp.ux[q] * (rj[0] - ri[0]) + rp.uy[q] * (rj[1] - ri[1]) +
+                     rp.uz[q] * (rj[2] - ri[2]);
+        double gm[ND_DESC_MAX_RADIAL], r = rp.r[q], fc = rp.fc[q], dfc = rp.dfc[q];
+        radial_values(p, &grid, &rp, q, gm);
+        double *vv = v + (size_t)species[j] * nr;
+        for (int m = 0; m < nr; m++)
+            vv[m] += gm[m] * (dfc - 2 * p->radial_eta[m] * (r - shift[m]) * fc) * drr;
+    }
+    if (na == 0)
+        return;
+    /* scratch: the angular set-up (geo, e, de, tmp), then per angular
+     * neighbour the relative displacement / r (3) and d r */
+    double *geo = dscratch, *e = geo + 4 * (size_t)nn, *de = e + (size_t)nn * na;
+    double *tmp = de + (size_t)nn * na, *rel = tmp + nn;
+    int block[ND_DESC_MAX_ELEMENTS + 1];
+    int cnt = angular_setup(p, nel, x, species, i, nbr, nn, geo, e, de, iscratch, block, tmp);
+    for (int q = 0; q < cnt; q++) {
+        const double *rj = rt + 3 * (size_t)nbr[iscratch[q]], *gq = geo + 4 * (size_t)q;
+        double *rq = rel + 4 * (size_t)q, inv = 1 / gq[0];
+        double w0 = rj[0] - ri[0], w1 = rj[1] - ri[1], w2 = rj[2] - ri[2];
+        rq[0] = w0 * inv;
+        rq[1] = w1 * inv;
+        rq[2] = w2 * inv;
+        rq[3] = gq[1] * w0 + gq[2] * w1 + gq[3] * w2;
+    }
+    double *VA = v + (size_t)nel * nr;
+    double norm[ND_DESC_MAX_ANGULAR], zl[ND_DESC_MAX_ANGULAR];
+    int zmax = 0, off[ND_DESC_MAX_ANGULAR], dflt = angular_default(p);
+    for (int n = 0; n < na; n++) {
+        norm[n] = ldexp(1.0, 1 - p->angular_zeta[n]);
+        zl[n] = (double)(p->angular_zeta[n] * p->angular_lambda[n]);
+        zmax = p->angular_zeta[n] > zmax ? p->angular_zeta[n] : zmax;
+        off[n] = (p->angular_lambda[n] > 0 ? ZS : 0) + p->angular_zeta[n];
+    }
+    int za = 0;
+    for (int a = 0; a < cnt; a++) {
+        while (a >= block[za + 1])
+            za++;
+        const double *ga = geo + 4 * (size_t)a, *ea = e + (size_t)a * na,
+                     *dea = de + (size_t)a * na, *ra = rel + 4 * (size_t)a;
+        int zb = za;
+        for (int b = a + 1; b < cnt; b++) {
+            while (b >= block[zb + 1])
+                zb++;
+            const double *gb = geo + 4 * (size_t)b, *eb = e + (size_t)b * na,
+                         *deb = de + (size_t)b * na, *rb = rel + 4 * (size_t)b;
+            double c = ga[1] * gb[1] + ga[2] * gb[2] + ga[3] * gb[3];
+            /* d cos = (u_b - c u_a) . dr_a / r_a + (u_a - c u_b) . dr_b / r_b */
+            double dc = 0;
+            for (int k = 0; k < 3; k++)
+                dc += (gb[1 + k] - c * ga[1 + k]) * ra[k] + (ga[1 + k] - c * gb[1 + k]) * rb[k];
+            double *vv = VA + (size_t)pair_index(za, zb, nel) * na;
+            if (dflt) {
+                /* (1 + lambda c)^(zeta - 1) and ^zeta of the default sets */
+                double p1 = 1 + c, m1 = 1 - c, p2 = p1 * p1, m2 = m1 * m1;
+                double pw1[5] = {1, 1, p2 * p1, m2 * m1, p1};
+                double pw[5] = {p1, m1, p2 * p2, m2 * m2, p2};
+                for (int n = 0; n < 5; n++)
+                    vv[n] += norm[n] * (zl[n] * pw1[n] * dc * ea[n] * eb[n] +
+                                        pw[n] * (dea[n] * eb[n] * ra[3] + ea[n] * deb[n] * rb[3]));
+                continue;
+            }
+            double t[2 * ZS];
+            cos_powers(c, zmax, t);
+            for (int n = 0; n < na; n++) {
+                double pw1 = t[off[n] - 1], pw = t[off[n]];
+                vv[n] += norm[n] * (zl[n] * pw1 * dc * ea[n] * eb[n] +
+                                    pw * (dea[n] * eb[n] * ra[3] + ea[n] * deb[n] * rb[3]));
+            }
+        }
+    }
+}
+
+size_t nd_descriptor_tangent_scratch_doubles(const nd_descriptor_params *p, int maxnn)
+{
+    size_t nn = (size_t)(maxnn > 0 ? maxnn : 1);
+    size_t ang = nn * (size_t)(9 + 2 * p->nangular), rad = radial_scratch(maxnn);
+    return ang > rad ? ang : rad;
 }

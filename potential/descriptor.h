@@ -25,6 +25,8 @@
 #include "core/status.h"
 
 #include <stddef.h>
+#include <stdint.h>
+#include <string.h>
 
 #define ND_DESC_MAX_RADIAL 32
 #define ND_DESC_MAX_ANGULAR 16
@@ -72,8 +74,54 @@ double nd_descriptor_cutoff(double r, double rc, double *d1, double *d2);
 
 /* ---- module-internal: used by potential.c and the trainer ---- */
 
-/* Scratch needed by the per-atom calls for an atom with up to maxnn
- * neighbours, for a model of nel elements: doubles (and maxnn ints). */
+/* exp(x) for x <= 709, written so that the compiler can vectorise loops
+ * that call it (no branches, no library call): x = k ln 2 + f with k the
+ * nearest integer to x / ln 2 (|f| <= ln 2 / 2, ln 2 split in two parts so
+ * that f is exact to a few ulps), exp(f) by its Taylor series to degree 13
+ * (truncation below 2e-17 relative), times 2^k built in the exponent bits.
+ * Within 1 ulp of the C library's exp on a dense grid of [-708, 709]
+ * (test_descriptor); 0 below -708 (where the true value is below
+ * 3.3e-308). It is a fixed sequence of plain IEEE operations (C11 mode
+ * fuses no multiply-add), so the scalar and vector versions of a loop give
+ * the same bits, whatever the thread count. Files that want
+ * loops with it vectorised compile with -fno-trapping-math (a pragma):
+ * otherwise GCC may not turn the two comparisons into selects. */
+static inline double nd_exp(double x)
+{
+    const double shifter = 0x1.8p52, log2e = 0x1.71547652b82fep0;
+    const double ln2hi = 0x1.62e42fefa3800p-1, ln2lo = 0x1.ef35793c76730p-45;
+    double xc = x < -708.0 ? -708.0 : x;
+    double kd = xc * log2e + shifter; /* k + 1.5 2^52: k in the low mantissa bits */
+    uint64_t kb;
+    memcpy(&kb, &kd, sizeof kb);
+    double k = kd - shifter;
+    double f = (xc - k * ln2hi) - k * ln2lo;
+    double q = 1.0 / 6227020800.0;
+    q = q * f + 1.0 / 479001600.0;
+    q = q * f + 1.0 / 39916800.0;
+    q = q * f + 1.0 / 3628800.0;
+    q = q * f + 1.0 / 362880.0;
+    q = q * f + 1.0 / 40320.0;
+    q = q * f + 1.0 / 5040.0;
+    q = q * f + 1.0 / 720.0;
+    q = q * f + 1.0 / 120.0;
+    q = q * f + 1.0 / 24.0;
+    q = q * f + 1.0 / 6.0;
+    q = q * f + 0.5;
+    q = q * f + 1.0;
+    q = q * f + 1.0;
+    /* the low 52 bits of kb hold 2^51 + k: (kb - 2^51 + 1023) << 52 is 2^k */
+    uint64_t sb = (kb - 0x8000000000000ull + 1023u) << 52;
+    double s;
+    memcpy(&s, &sb, sizeof s);
+    double y = q * s;
+    return x >= -708.0 ? y : 0.0;
+}
+
+
+/* Scratch needed by the per-atom calls (nd_descriptor_atom, _grad,
+ * _grad_shared, _tangent) for an atom with up to maxnn neighbours, for a
+ * model of nel elements: doubles (and maxnn ints). */
 size_t nd_descriptor_scratch_doubles(const nd_descriptor_params *p, int nel, int maxnn);
 
 /* Features of atom i. x: coordinates (3 per atom, the same indexing as
@@ -101,5 +149,21 @@ void nd_descriptor_atom_grad_shared(const nd_descriptor_params *p, int nel, cons
                                     const int *species, int i, const int *nbr, int nn,
                                     const double *U, const int *row, int D, double *gi,
                                     double *gj, double *dscratch, int *iscratch);
+
+/* Directional derivative of the features (used by the trainer's exact
+ * force-loss gradient; see POTENTIAL.md): for atom i and a displacement
+ * field r (3 numbers per atom, indexed like x), writes
+ *     v_i = sum_k J_ik r_k,   J_ik = dG_i/dx_k  (D x 3),
+ * the rate of change of atom i's features when every atom k moves along
+ * r_k (D values, overwritten), without forming J. Other arguments as for
+ * nd_descriptor_atom. */
+void nd_descriptor_atom_tangent(const nd_descriptor_params *p, int nel, const double *x,
+                                const int *species, int i, const int *nbr, int nn, const double *r,
+                                double *v, double *dscratch, int *iscratch);
+
+/* Scratch doubles nd_descriptor_atom_tangent needs for up to maxnn
+ * neighbours, whatever the number of elements (at most
+ * nd_descriptor_scratch_doubles, which also covers it). */
+size_t nd_descriptor_tangent_scratch_doubles(const nd_descriptor_params *p, int maxnn);
 
 #endif

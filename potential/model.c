@@ -423,13 +423,14 @@ static int slurp(const char *path, unsigned char **out, size_t *len, nd_error *e
         } else
             b = nb;
     }
-    int rerr = ferror(f);
+    int rerr = ferror(f), rerrno = errno;
     fclose(f);
     if (!b)
         return nd_fail(err, ND_ENOMEM, "%s: out of memory reading the model file", path);
     if (rerr) {
         free(b);
-        return nd_fail(err, ND_EIO, "%s: read error", path);
+        return nd_fail(err, ND_EIO, "%s: cannot read the model file: %s", path,
+                       strerror(rerrno));
     }
     b[n] = 0;
     *out = b;

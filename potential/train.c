@@ -12,7 +12,7 @@
 
 #include "core/elements.h"
 #include "core/rng.h"
-#include "potential/descriptor_tangent.h"
+#include "potential/descriptor.h"
 #include "potential/neighbors.h"
 #include "potential/net_tangent.h"
 #include "potential/network.h"
@@ -139,10 +139,7 @@ static int cws_nn(cws *w, const struct nd_model *m, int maxnn, size_t pairs)
     }
     if (maxnn > w->cap_nn || !w->gj) {
         int nn = maxnn > 1 ? maxnn : 1;
-        size_t scr = nd_descriptor_tangent_scratch_doubles(&m->desc, nn);
-        size_t s2 = nd_descriptor_scratch_doubles(&m->desc, m->nel, nn);
-        if (s2 > scr)
-            scr = s2;
+        size_t scr = nd_descriptor_scratch_doubles(&m->desc, m->nel, nn); /* covers the tangent */
         if (grow(&w->gj, 3 * (size_t)nn * sizeof(double)) || grow(&w->scr, scr * sizeof(double)) ||
             grow(&w->iscr, (size_t)nn * sizeof(int)))
             return -1;

@@ -14,7 +14,7 @@
  *      + (weight_decay / 2) |theta|^2,
  *    in kcal/mol and angstrom; its gradient in the weights is exact, the
  *    force term by forward-mode tangents (potential/net_tangent.h,
- *    potential/descriptor_tangent.h);
+ *    potential/descriptor.h: nd_descriptor_atom_tangent);
  *  - Adam (D. P. Kingma and J. Ba, "Adam: a method for stochastic
  *    optimization", ICLR 2015; beta1 0.9, beta2 0.999, epsilon 1e-8 as
  *    there) per ensemble member, with its learning rate halved when the

@@ -47,4 +47,19 @@ grep -q '^M  CHG  2' "$T/q.sdf" && ok "charges in M  CHG" || not_ok "charges" "$
 # the output reads back: nadir convert to SMILES and inspect agree on the formula
 check "SD output reads back" "$NADIR" inspect "$T/a.sdf"
 grep -q 'C6H6' "$T/out" && grep -q 'C2H2F2' "$T/out" && ok "formulas kept" || not_ok "formulas" "$(cat "$T/out")"
+# inputs that are not SMILES: an SD file, a directory, binary bytes
+"$NADIR" build "$T/a.sdf" -o "$T/x.sdf" 2>/dev/null; [ -e "$T/x.sdf" ] && not_ok "SD input left an output" || ok "SD input: no output"
+check_fails "an SD file is refused, not read as SMILES lines" 3 "build reads SMILES" "$NADIR" build "$T/a.sdf"
+check_fails "a directory is named as such" 3 "is a directory" "$NADIR" build "$T"
+printf 'CC\001C x\n' > "$T/ctl.smi"
+check_fails "a control byte is shown as hex" 3 "unexpected byte 0x01" "$NADIR" build "$T/ctl.smi"
+check "nadir help build" "$NADIR" help build
+grep -q "^usage: nadir build" "$T/out" && ok "nadir help COMMAND shows the command's help" || not_ok "help COMMAND" "$(head -2 "$T/out")"
+printf '\357\273\277CCO ethanol\n' > "$T/bom.smi"
+check "a file with a UTF-8 byte-order mark" "$NADIR" build "$T/bom.smi"
+grep -q "^ethanol" "$T/out" && ok "byte-order mark skipped" || not_ok "byte-order mark" "$(cat "$T/err")"
+cat "$T/a.sdf" | "$NADIR" build - >"$T/piped.out" 2>"$T/err"; rc=$?
+[ $rc = 3 ] && grep -q "looks like an SD file" "$T/err" && [ ! -s "$T/piped.out" ] && ok "SD on stdin refused before anything is written" || not_ok "SD on stdin" "exit $rc: $(head -c 300 "$T/err")"
+printf '3\nwater\nO 0 0 0\nH 0.96 0 0\nH -0.24 0.93 0\n' > "$T/w.smi"
+check_fails "an XYZ file named .smi is refused" 3 "looks like an XYZ file" "$NADIR" build "$T/w.smi"
 finish

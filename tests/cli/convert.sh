@@ -84,4 +84,17 @@ check_fails "1000 atoms to SD V2000: exit 3" 3 "holds at most 999" "$NADIR" conv
 [ ! -e "$T/big.sdf" ] && ok "no output for an unwritable record" || not_ok "big.sdf written"
 check "1000 atoms to XYZ" "$NADIR" convert "$T/big.xyz" "$T/big2.xyz"
 cmp -s <(awk 'NR>2{print $1, $2+0}' "$T/big.xyz") <(awk 'NR>2{print $1, $2+0}' "$T/big2.xyz") && ok "XYZ to XYZ keeps every atom" || not_ok "XYZ to XYZ"
+# what the output format loses is said; a record it refuses is named by its input record
+printf 'CCO ethanol\nCC methane-ish\n' > "$T/two.smi"
+check_fails "SMILES to XYZ: input record named" 3 "two.smi, record 2: cannot write to" "$NADIR" convert "$T/two.smi" "$T/two.xyz"
+check "SMILES to SD" "$NADIR" convert "$T/two.smi" "$T/two.sdf"
+grep -q "no coordinates (SMILES)" "$T/err" && ok "SMILES to SD: zero coordinates noted" || not_ok "no note on zero coordinates" "$(cat "$T/err")"
+printf 'C[N+](C)(C)C tma\n' | "$NADIR" build - 2>/dev/null > "$T/tma.sdf"
+check "charged SD to XYZ" "$NADIR" convert "$T/tma.sdf" "$T/tma.xyz"
+grep -q "net charge, unpaired electrons or isotope" "$T/err" && ok "lost charge noted" || not_ok "no note on the lost charge" "$(cat "$T/err")"
+check "XYZ to SD" "$NADIR" convert $D/water.xyz "$T/w.sdf"
+grep -q "without bonds" "$T/err" && ok "missing bonds noted" || not_ok "no note on missing bonds" "$(cat "$T/err")"
+cp $D/water.xyz "$T/same.xyz"
+check_fails "same file by another path" 2 "the same file" "$NADIR" convert "$T/same.xyz" "$T/../$(basename "$T")/same.xyz"
+check_fails "stdout named in messages" 3 "stdout not written" "$NADIR" convert "$T/two.smi" - --to xyz
 finish

@@ -67,4 +67,24 @@ check_fails "truncated model file" 3 "truncated" "$NADIR" energy "$T/m.xyz" --mo
 check_fails "missing input" 3 "nope.xyz" "$NADIR" energy "$T/nope.xyz" --model "$T/r.model"
 check_fails "usage" 2 "no input file" "$NADIR" energy --model "$T/r.model"
 check "help" "$NADIR" energy --help
+# messages: one location prefix, the reason for a missing 3D structure, close atoms, units
+printf 'CCO ethanol\nC1CC broken\n' > "$T/s.smi"
+check_fails "SMILES input: no coordinates named, nadir build suggested" 3 "no 3D coordinates (none at all); nadir build" "$NADIR" energy "$T/s.smi" --model "$T/r.model"
+grep -q "s.smi, record 2, line 2: SMILES" "$T/err" && ! grep -q "record 2: .*record 2" "$T/err" && ok "reader errors carry one prefix" || not_ok "doubled prefix" "$(cat "$T/err")"
+printf '3\nclash\nO 0 0 0\nH 0 0 0\nH 1 0 0\n' > "$T/clash.xyz"
+check_fails "coincident atoms are named" 3 "atoms 1 and 2 are only 0.000 A apart" "$NADIR" energy "$T/clash.xyz" --model "$T/r.model"
+check_fails "a directory as the model" 3 "Is a directory" "$NADIR" energy "$T/m.xyz" --model "$T"
+check "forces table" "$NADIR" energy "$T/m.xyz" --model "$T/r.model" --gradient
+grep -q "forces in kcal/mol/angstrom" "$T/out" && ok "force unit in the table's footer" || not_ok "force unit" "$(tail -2 "$T/out")"
+check "make-random-model says what it wrote" "$NADIR" energy --make-random-model "$T/r2.model"
+grep -q "random-weight model written to" "$T/err" && ok "random model message" || not_ok "random model message" "$(cat "$T/err")"
+
+# a one-member model has no spread: shown as "-" and null, not as zero uncertainty
+printf '2\nhh\nH 0 0 0\nH 0.8 0 0.01\n2\nhh\nH 0 0 0\nH 0.74 0.02 0\n' > "$T/hh.xyz"
+"$NADIR" label "$T/hh.xyz" -o "$T/hh.jsonl" --potential-command tests/cli/morse_potential.py --threads 1 2>/dev/null
+"$NADIR" train "$T/hh.jsonl" -o "$T/one.model" --members 1 --layers 4 --epochs 1 --threads 1 --quiet >/dev/null 2>&1
+check "one-member model" "$NADIR" energy "$T/hh.xyz" --model "$T/one.model" --json
+/usr/bin/python3 -c "import json,sys; r=json.load(open(sys.argv[1]))['records']; assert r[0]['energy_spread'] is None and r[1]['energy_vs_first_spread'] is None" "$T/out" && ok "one member: spread null in JSON" || not_ok "one member JSON spread" "$(head -c 300 "$T/out")"
+check "one-member table" "$NADIR" energy "$T/hh.xyz" --model "$T/one.model"
+grep -q "no ensemble, so no spread" "$T/out" && ok "one member: the table says there is no spread" || not_ok "one member table" "$(cat "$T/out")"
 finish

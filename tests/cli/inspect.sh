@@ -74,4 +74,8 @@ check_fails "--json with a bad record: exit 5" 5 "record 2" "$NADIR" inspect --j
 python3 -c "import json,sys; d=json.load(open(sys.argv[1])); assert d['read']==2 and d['failed']==1 and d['failures'][0]['record']==2 and 'line 20' in d['failures'][0]['message']" "$TAP_TMP/out" \
   && ok "--json lists the failure with its record and message" || not_ok "--json failures"
 check_fails "nothing readable: exit 3" 3 "line 1: no sdf records" "$NADIR" inspect $D/malformed/empty.sdf
+# a record without bonds (from XYZ) is not said to have implicit hydrogens
+"$NADIR" convert tests/data/water.xyz "$TAP_TMP/bondless.sdf" 2>/dev/null
+check "bondless SD" "$NADIR" inspect "$TAP_TMP/bondless.sdf"
+grep -q "no bonds" "$TAP_TMP/err" && ! grep -q "implicit" "$TAP_TMP/err" && ok "bondless record: no-bond note, no implicit-H note" || not_ok "bondless note" "$(cat "$TAP_TMP/err")"
 finish

@@ -176,4 +176,14 @@ check "shell syntax is passed as words" "$NADIR" label $D/clusters.xyz -o "$T/i.
   --potential-command "$FAKE ok ; touch $T/injected"
 [ ! -e "$T/injected" ] && ok "nothing ran through a shell" || not_ok "nothing ran through a shell"
 check "help" "$NADIR" label --help
+# a file that is not a dataset is never appended to (nor its tail cut)
+printf 'not a dataset\nsecond line without newline' > "$T/notes.txt"
+cp "$T/notes.txt" "$T/notes.orig"
+check_fails "refuses to append to a non-dataset" 3 "not a dataset" "$NADIR" label $D/clusters.xyz -o "$T/notes.txt" --potential-command "$FAKE"
+cmp -s "$T/notes.txt" "$T/notes.orig" && ok "the non-dataset is untouched" || not_ok "non-dataset modified"
+check_fails "option named in a bad value" 2 "--nudge takes a non-negative number" "$NADIR" label $D/clusters.xyz -o "$T/z.jsonl" --potential-command "$FAKE" --nudge nan
+check_fails "option named in a bad value (2)" 2 "--audit-tolerance takes a positive number" "$NADIR" label $D/clusters.xyz -o "$T/z.jsonl" --potential-command "$FAKE" --audit-tolerance -1
+printf '2\n\nH 0 0 0\nH 0.8 0 0\n' > "$T/untitled.xyz"
+check_fails "no usable structure: exit 3" 3 "no usable structure in" "$NADIR" label "$T/untitled.xyz" -o "$T/none.jsonl" --potential-command "$FAKE"
+[ ! -e "$T/none.jsonl" ] && ok "no dataset created when nothing can be labelled" || not_ok "empty dataset created"
 finish

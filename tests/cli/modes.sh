@@ -207,4 +207,20 @@ echo "CCO ethanol" > "$T/e.smi"
 check_fails "SMILES has no 3D coordinates" 3 "no 3D coordinates" "$NADIR" modes "$T/e.smi" --potential-command "$POTCMD"
 check_fails "frozen atom out of range" 3 "outside 1..2" "$NADIR" modes "$T/hcl.xyz" --potential-command "$POTCMD" --frozen 1-3
 check_fails "failing potential" 4 "record 1" "$NADIR" modes "$T/hcl.xyz" --potential-command "/bin/false"
+# a structure far from a stationary point is flagged, not called a minimum;
+# -o is the same as --write; failures name the file
+cat > "$T/hcl-far.xyz" <<'XYZ'
+2
+stretched hydrogen chloride
+H   0.1000  0.2000  0.3000
+Cl  0.1000  0.2000  1.8000
+XYZ
+check "stretched HCl" "$NADIR" modes "$T/hcl-far.xyz" --potential-command "$POTCMD" -o "$T/far.sdf" --report "$T/far.json"
+grep -q "not a stationary point" "$T/out" && ! grep -q "verdict  *minimum" "$T/out" && ok "stretched: not called a minimum" || not_ok "stretched verdict" "$(grep verdict "$T/out")"
+grep -q "hcl-far.xyz, record 1: residual gradient" "$T/err" && ok "stretched: warning on stderr" || not_ok "stretched warning" "$(cat "$T/err")"
+grep -A1 modes_verdict "$T/far.sdf" | grep -q "not stationary" && ok "-o writes the structures, verdict item says so" || not_ok "-o output" "$(cat "$T/far.sdf" 2>&1 | head -3)"
+$PY -c "import json,sys; d=json.load(open(sys.argv[1])); r=d['records'][0]; assert r['stationary_point'] is False; assert d['energy_unit'] == 'kcal/mol' and d['wavenumber_unit'] == 'cm^-1'" "$T/far.json" && ok "report: stationary_point false, units named" || not_ok "report stationary_point"
+check_fails "failure names the file" 4 "hcl.xyz, record 1:" "$NADIR" modes "$T/hcl.xyz" --potential-command "/bin/false"
+check_fails "report path checked first" 3 "does not exist" "$NADIR" modes "$T/hcl.xyz" --potential-command "$POTCMD" --report "$T/nodir/r.json"
+check_fails "-o - refused (stdout has the table)" 2 "standard output carries the table" "$NADIR" modes "$T/hcl.xyz" --potential-command "$POTCMD" -o -
 finish

@@ -96,7 +96,7 @@ then ok "scan holds each angle; symmetric profile; records and frames"; else not
 
 check_fails "scan atom out of range" 3 "--scan 1,2,3,9: restraints: atom 9 is out of range (1..4)" \
   "$NADIR" optimize "$T/t.xyz" --potential-command "$POT" --scan 1,2,3,9
-check_fails "frozen atom out of range" 3 "--frozen '1,7': atoms 7-7 outside 1..4" \
+check_fails "frozen atom out of range" 3 "--frozen '1,7': atom 7 is outside 1..4" \
   "$NADIR" optimize "$T/t.xyz" --potential-command "$POT" --frozen 1,7
 
 cat "$T/t.xyz" "$T/d.xyz" "$T/t.xyz" > "$T/three.xyz"
@@ -111,4 +111,17 @@ cat "$T/br.xyz" "$T/d.xyz" > "$T/mix.xyz"
 check_fails "element outside the model" 3 "record 1: atom 2 (Br)" "$NADIR" optimize "$T/br.xyz" --model "$T/r.model"
 check_fails "one bad record of two" 5 "1 record converged, 0 not converged, 1 failed" \
   "$NADIR" optimize "$T/mix.xyz" --model "$T/r.model"
+# frozen atoms checked; a bad --report path fails before the work; close atoms named
+printf '2\npair\nH 0.1 0.2 0.3\nH 1.6 0.5 0.1\n' > "$T/p2.xyz"
+check_fails "every atom frozen" 3 "fixes all 2 atoms" "$NADIR" optimize "$T/p2.xyz" --potential-command "$POT" --frozen 1-2
+check_fails "frozen atom out of range" 3 "atom 3 is outside 1..2" "$NADIR" optimize "$T/p2.xyz" --potential-command "$POT" --frozen 3
+check_fails "backwards range" 3 "runs backwards" "$NADIR" optimize "$T/p2.xyz" --potential-command "$POT" --frozen 2-1
+check_fails "report in a missing directory: before the work" 3 "does not exist" "$NADIR" optimize "$T/p2.xyz" --potential-command "$POT" --report "$T/nodir/r.json"
+[ ! -s "$T/out" ] && ok "nothing relaxed before the report path failed" || not_ok "relaxed first" "$(cat "$T/out")"
+printf '3\nclash\nH 0 0 0\nH 0 0 0\nH 1 0 0\n' > "$T/clash.xyz"
+"$NADIR" energy --make-random-model "$T/r.model" --elements H 2>/dev/null
+check_fails "coincident atoms named" 4 "atoms 1 and 2 are only 0.000 A apart" "$NADIR" optimize "$T/clash.xyz" --model "$T/r.model"
+printf 'CCO ethanol\n' > "$T/s.smi"
+check_fails "SMILES input: build suggested" 3 "nadir build makes them from SMILES" "$NADIR" optimize "$T/s.smi" --potential-command "$POT"
+check_fails "-o - refused (stdout has the table)" 2 "standard output carries the table" "$NADIR" optimize "$T/p2.xyz" --potential-command "$POT" -o -
 finish

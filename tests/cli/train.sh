@@ -105,4 +105,12 @@ check_fails "no dataset" 2 "no dataset" "$NADIR" train
 check "train --help" "$NADIR" train --help
 check "evaluate --help" "$NADIR" evaluate --help
 check_fails "evaluate a missing model" 3 "nope.model" "$NADIR" evaluate "$T/nope.model" "$T/data.jsonl"
+# a split that would mislead is said: two molecules, each with an element of its own
+printf '3\nwat\nO 0 0 0\nH 0.96 0 0.01\nH -0.24 0.93 0.02\n3\nwat\nO 0 0 0.01\nH 0.99 0 0\nH -0.25 0.9 0\n2\nnn\nN 0 0 0\nH 1.02 0.01 0\n2\nnn\nN 0 0 0\nH 1.05 0 0.01\n' > "$T/two.xyz"
+"$NADIR" label "$T/two.xyz" -o "$T/two.jsonl" --potential-command tests/cli/morse_potential.py --threads 1 2>/dev/null
+check "train on two molecules" "$NADIR" train "$T/two.jsonl" -o "$T/two.model" --layers 4 --members 1 --epochs 1 --threads 1 --quiet
+grep -q "held out for validation, more than the --validation-fraction" "$T/err" && ok "oversized validation share warned" || not_ok "no warning on the split" "$(cat "$T/err")"
+grep -qE "element (N|O) is only in validation molecules" "$T/err" && ok "validation-only element warned" || not_ok "no warning on the element" "$(cat "$T/err")"
+head -1 "$T/two.jsonl" > "$T/header-only.jsonl"
+check_fails "evaluate on a dataset without structures" 3 "has no structures" "$NADIR" evaluate "$T/two.model" "$T/header-only.jsonl"
 finish

@@ -66,6 +66,22 @@ static void test_limits(void **state)
     free(big);
 }
 
+/* A UTF-8 byte-order mark is dropped from the first line only. */
+static void test_byte_order_mark(void **state)
+{
+    (void)state;
+    const char *text = "\xef\xbb\xbf" "3\n\xef\xbb\xbfkept\n";
+    nd_lines l;
+    nd_lines_init(&l, "bom.xyz", "frame", text, strlen(text), NULL);
+    nd_error err;
+    assert_int_equal(nd_lines_next(&l, &err), ND_OK);
+    assert_string_equal(l.buf, "3");
+    assert_int_equal(l.len, 1);
+    assert_int_equal(nd_lines_next(&l, &err), ND_OK);
+    assert_string_equal(l.buf, "\xef\xbb\xbfkept");
+    nd_lines_free(&l);
+}
+
 static void test_fail_format(void **state)
 {
     (void)state;
@@ -117,7 +133,7 @@ int main(void)
 {
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(test_lines), cmocka_unit_test(test_limits),
-        cmocka_unit_test(test_fail_format), cmocka_unit_test(test_numbers),
+        cmocka_unit_test(test_fail_format), cmocka_unit_test(test_byte_order_mark), cmocka_unit_test(test_numbers),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }

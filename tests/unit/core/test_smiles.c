@@ -431,6 +431,13 @@ static void test_edges(void **state)
     assert_int_equal(nd_smiles_parse("", &m, &err), ND_EINPUT);
     assert_contains(err.msg, "empty SMILES");
     assert_int_equal(nd_smiles_parse(NULL, &m, &err), ND_EINVAL);
+    /* bytes that cannot be printed are named by their value */
+    assert_int_equal(nd_smiles_parse("CC\001C", &m, &err), ND_EINPUT);
+    assert_contains(err.msg, "column 3: unexpected byte 0x01");
+    assert_int_equal(nd_smiles_parse("C\xc3\xa9", &m, &err), ND_EINPUT);
+    assert_contains(err.msg, "unexpected byte 0xC3");
+    assert_int_equal(nd_smiles_parse("C?C", &m, &err), ND_EINPUT);
+    assert_contains(err.msg, "unexpected character '?'");
     char *out = (char *)1;
     assert_int_equal(nd_smiles_write(&m, &out, &err), ND_EINPUT);
     assert_null(out);

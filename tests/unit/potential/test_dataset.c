@@ -262,6 +262,30 @@ static void test_writer_refuses_other_units(void **state)
     assert_contains(err.msg, "units other than kcal/mol");
 }
 
+/* The writer never appends to (or cuts the tail of) a file that is not a
+ * dataset: text that does not start with a JSON object, or binary bytes. */
+static void test_writer_refuses_non_dataset(void **state)
+{
+    (void)state;
+    static const char *texts[] = {"CCO ethanol\nlast line without newline", "\n\n  title\n",
+                                  "{\0binary"};
+    static const size_t lens[] = {0, 0, 8};
+    for (int k = 0; k < 3; k++) {
+        const char *path = in_dir("notes.txt");
+        size_t n = lens[k] ? lens[k] : strlen(texts[k]);
+        FILE *f = fopen(path, "wb");
+        assert_non_null(f);
+        assert_int_equal(fwrite(texts[k], 1, n, f), n);
+        fclose(f);
+        nd_dataset_writer *w = NULL;
+        nd_error err;
+        assert_int_equal(nd_dataset_writer_open(&w, path, NULL, &err), ND_EINPUT);
+        assert_null(w);
+        assert_contains(err.msg, "not a dataset");
+        assert_int_equal(file_size(path), (long)n);
+    }
+}
+
 /* The binary cache is used only while the file is unchanged, and gives the
  * same structures as the text. */
 static void test_cache(void **state)
@@ -465,6 +489,7 @@ int main(void)
         cmocka_unit_test(test_bad_lines),
         cmocka_unit_test(test_interrupted_tail),
         cmocka_unit_test(test_writer_refuses_other_units),
+        cmocka_unit_test(test_writer_refuses_non_dataset),
         cmocka_unit_test(test_cache),
         cmocka_unit_test(test_hash),
         cmocka_unit_test(test_number_text),

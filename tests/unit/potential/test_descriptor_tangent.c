@@ -5,7 +5,6 @@
 
 #include "core/rng.h"
 #include "potential/descriptor.h"
-#include "potential/descriptor_tangent.h"
 
 #include <math.h>
 #include <stdlib.h>
@@ -96,11 +95,18 @@ static void test_against_differences(void **state)
     free(gm);
 }
 
-static void test_adjoint_identity(void **state)
+/* u . v_i = sum_k r_k . d(u . G_i)/dx_k; variant 1 uses uneven radial and
+ * angular sets (the general loops instead of the default kernels). */
+static void adjoint_identity(int variant)
 {
-    (void)state;
     nd_descriptor_params p;
     params(&p);
+    if (variant) {
+        p.radial_eta[2] = 3.25;
+        p.radial_shift[5] = 2.71;
+        p.angular_zeta[4] = 3;
+        p.angular_eta[1] = 0.125;
+    }
     const int D = nd_descriptor_size(&p, NEL);
     double x[3 * NAT], rt[3 * NAT], gi[3], gj[3 * NAT];
     int species[NAT], nbr[NAT], iscr[NAT];
@@ -137,6 +143,18 @@ static void test_adjoint_identity(void **state)
     free(v);
 }
 
+static void test_adjoint_identity(void **state)
+{
+    (void)state;
+    adjoint_identity(0);
+}
+
+static void test_adjoint_identity_general(void **state)
+{
+    (void)state;
+    adjoint_identity(1);
+}
+
 /* A zero displacement, and a rigid translation, change nothing. */
 static void test_translation(void **state)
 {
@@ -169,6 +187,7 @@ int main(void)
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(test_against_differences),
         cmocka_unit_test(test_adjoint_identity),
+        cmocka_unit_test(test_adjoint_identity_general),
         cmocka_unit_test(test_translation),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);

@@ -252,6 +252,9 @@ static void test_rejects(void **state)
     nd_error err;
     assert_int_equal(nd_model_load("/nonexistent/dir/x.model", &r, &err), ND_EIO);
     assert_contains(err.msg, "/nonexistent/dir/x.model");
+    /* a directory: the reason is named */
+    assert_int_equal(nd_model_load("/tmp", &r, &err), ND_EIO);
+    assert_contains(err.msg, "Is a directory");
     assert_int_equal(nd_model_save(m, "/nonexistent/dir/x.model", &err), ND_EIO);
     unlink(path);
     free(b);
