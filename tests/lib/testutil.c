@@ -34,6 +34,16 @@ void nd_test_assert_contains(const char *haystack, const char *needle, const cha
     }
 }
 
+/* Temporary files made by nd_test_write_temp, removed when the test exits. */
+static char temp_paths[4096][256];
+static int ntemp;
+
+static void remove_temp_files(void)
+{
+    for (int i = 0; i < ntemp; i++)
+        remove(temp_paths[i]);
+}
+
 const char *nd_test_write_temp(const char *text, const char *suffix)
 {
     static char path[256];
@@ -48,6 +58,10 @@ const char *nd_test_write_temp(const char *text, const char *suffix)
         return NULL;
     }
     close(fd);
+    if (ntemp == 0)
+        atexit(remove_temp_files);
+    if (ntemp < 4096)
+        memcpy(temp_paths[ntemp++], path, sizeof path);
     return path;
 }
 

@@ -25,7 +25,8 @@ void nd_test_assert_rel_close(double a, double b, double rel, double floor, cons
     nd_test_assert_contains((haystack), (needle), __FILE__, __LINE__)
 void nd_test_assert_contains(const char *haystack, const char *needle, const char *file, int line);
 
-/* Writes text to a new temporary file whose name ends in suffix (".xyz");
+/* Writes text to a new temporary file whose name ends in suffix (".xyz"),
+ * removed when the test program exits;
  * returns the path in static storage that is valid until the next call. */
 const char *nd_test_write_temp(const char *text, const char *suffix);
 
