@@ -397,7 +397,7 @@ static cJSON *conformer_json(const nd_conformer *c, int rank, int natoms, const 
 
 /* Prints the ranked table of one molecule. */
 static void print_table(int rec, const nd_molecule *mol, const nd_search *s, int free_energy,
-                        double seconds)
+                        double temperature, double seconds)
 {
     char formula[128];
     nd_molecule_formula(mol, formula, sizeof formula);
@@ -421,9 +421,9 @@ static void print_table(int rec, const nd_molecule *mol, const nd_search *s, int
         printf("  %7.4f  %11.1f  %11s  %s%s\n", f->weight, f->lowest_freq, unc,
                f->repaired ? "repaired " : "", f->uncertain ? "model unsure" : "");
     }
-    printf("  energies in kcal/mol; %s in kcal/mol relative to the lowest; weights at the "
-           "chosen temperature; frequencies in cm^-1\n\n",
-           free_energy ? "rel.E and rel.G" : "rel.E");
+    printf("  energies in kcal/mol; %s in kcal/mol relative to the lowest; Boltzmann weights at "
+           "%.2f K; frequencies in cm^-1\n\n",
+           free_energy ? "rel.E and rel.G" : "rel.E", temperature);
 }
 
 /* Runs the whole search of one molecule, with a progress line on a
@@ -610,7 +610,7 @@ int cmd_conformers(int argc, char **argv)
             continue;
         }
         done++;
-        print_table(rec, &mol, srch, o.search.free_energy, secs);
+        print_table(rec, &mol, srch, o.search.free_energy, o.search.temperature, secs);
         if (jm) {
             cJSON_AddStringToObject(jm, "status", "ok");
             cJSON_AddItemToObject(jm, "search", stats_json(nd_search_stats(srch), secs));

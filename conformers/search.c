@@ -844,8 +844,9 @@ int nd_search_finish(nd_search *s, nd_error *err)
     }
     if (nalive == 0) {
         status = nd_fail(err, ND_ECOMPUTE,
-                         "no verified minimum: %d checked, %d still not minima after repair, %d "
-                         "changed in the check",
+                         "no verified minimum: of %d minima checked by normal modes, %d still had "
+                         "imaginary modes after repair and %d changed their bonds or stereo while "
+                         "being repaired; the potential may be unsuited to this molecule",
                          s->st.checked, s->st.not_minimum, s->st.changed_in_check);
         goto out;
     }
