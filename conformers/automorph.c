@@ -7,8 +7,15 @@
  * maps atoms in breadth-first order, trying only candidates of the same
  * colour whose already-mapped neighbours correspond through bonds of the
  * same order. Refinement is a necessary condition only, so every full
- * mapping is checked edge by edge before it is accepted. */
+ * mapping is checked edge by edge before it is accepted.
+ *
+ * Bonds of flat (aromatic and similar conjugated) rings all count as one
+ * order, so the two Kekule forms of a ring are the same graph: otherwise a
+ * phenyl ring flip, a symmetry of the molecule, would be missed because the
+ * stored Kekule pattern is not symmetric under it. */
 #include "conformers/automorph.h"
+
+#include "conformers/topology.h"
 
 #include <stdint.h>
 #include <stdlib.h>
@@ -198,14 +205,17 @@ int nd_automorphs_find(const nd_molecule *m, const int *keep, int max_count, nd_
         status = nd_fail(err, ND_ENOMEM, "out of memory finding symmetry-equivalent atoms");
         goto done;
     }
+    nd_topology topo = {0};
+    int have_topo = n > 0 && nd_topology_build(m, &topo, NULL) == ND_OK;
     for (int i = 0; i < n; i++)
         for (int p = start[i]; p < start[i + 1]; p++) {
             int j = adj[p], order = 0;
             for (int b = 0; b < m->nbonds && !order; b++)
                 if ((m->bonds[b].a == i && m->bonds[b].b == j) || (m->bonds[b].a == j && m->bonds[b].b == i))
-                    order = m->bonds[b].order;
+                    order = (have_topo && topo.bond_flat[b] >= 0) ? ND_BOND_AROMATIC : m->bonds[b].order;
             s.order_of[p] = order;
         }
+    nd_topology_free(&topo);
     if (refine(&s, m) != ND_OK) {
         status = nd_fail(err, ND_ENOMEM, "out of memory finding symmetry-equivalent atoms");
         goto done;

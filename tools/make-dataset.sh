@@ -1,0 +1,394 @@
+#!/bin/bash
+# Builds nadir's training and test sets from scratch: reference energies and
+# forces (GFN2-xTB single points through tools/xtb-single-point) for
+# structures of the molecules in tools/molecules/. Run by `make dataset`.
+#
+#   tools/make-dataset.sh [--pilot] [options]        (--help lists them)
+#
+# Stages (each writes its own files under the work directory, default
+# data/dataset/, and is skipped on a restart when its files are there; the
+# labelling itself resumes structure by structure, so killing the run at any
+# point loses at most the structures being labelled):
+#   split      molecule split, seeded: 10% of small.smi held out entirely
+#              (test), the rest train; large.smi is a third set (extension
+#              test) that never enters training
+#   conformers distance-geometry embeddings from distinct starts (nadir build)
+#   torsions   shapes with rotatable bonds turned by random angles (our own
+#              script; clash check), from the conformers
+#   thermal    Gaussian displacements of conformers and torsion-varied shapes
+#              (RMS per atom 0.05 A heavy, 0.10 A hydrogen, times a per-
+#              structure scale in [0.5, 1.3]; the size of thermal motion at
+#              300-600 K, common practice, no source)
+#   relax      relaxation paths: nadir's L-BFGS with xtb single points as the
+#              potential, on a few conformers per molecule (more for the test
+#              set: its minima give the relative conformer energies of the
+#              held-out evaluation); every k-th frame, the minimum itself, and
+#              small displacements about the minimum (half the thermal size)
+#   scans      relaxed torsion scans (nadir optimize --scan, xtb single points)
+#              of one rotatable bond on a seeded fraction of the molecules
+#   summary    counts, element counts, energy and force ranges (summary.json),
+#              and the held-out sets in compact form (compact/)
+# Every labelling call audits a random sample of its structures (gradient
+# against central differences of the energies, nadir label --audit); labels
+# that fail are refused.
+#
+# Output: WORK/train.jsonl, WORK/test.jsonl, WORK/large.jsonl (dataset format
+# of potential/dataset.h; "tag" says which stage made each structure),
+# WORK/summary.json, WORK/compact/{test,large}.jsonl.gz, WORK/logs/.
+#
+# Cost, measured on this machine during the pilot (2 cores shared with other
+# engineers' builds and tests; GFN2-xTB through the wrapper, one single point
+# per core, OMP_NUM_THREADS=1, nice 19, one labelling thread):
+#   labelling, small molecules (10-38 atoms, ~24 on average), wall time per
+#     structure, audit included: conformers 0.29 s (1760 in 510 s), torsion-
+#     varied 0.28 s (854 in 242 s), thermal 0.15 s (2614 in 385 s), relaxation
+#     path frames 0.16 s; i.e. 12,000-25,000 structures per hour per core,
+#     depending on how busy the machine is (single point alone: ~0.1 s)
+#   single point, large set (49 atoms measured): ~0.37 s
+#   audit of one structure: 6n single points (~15 s for 24 atoms); every
+#     audited structure so far agreed to better than 0.01 kcal/mol/A
+#   relaxation (L-BFGS, Lindh preconditioner, xtb as the potential): median
+#     28 steps, 40 single points, 3.8 s per conformer (40 in 152 s)
+#   torsion scan, 12 angles relaxed: ~300 single points, ~30 s (small)
+# Full run with the defaults (per small training molecule: 8 conformers, 8
+# torsion-varied, 40 thermal, one relaxation path giving ~7 frames + the
+# minimum + 2 near it, a scan on 6% of molecules: ~67 structures; per
+# held-out molecule 4 relaxations, ~96 structures):
+#   train 2,160 x 67 = ~145,000 structures x 0.2 s         ~ 8 core-hours
+#         relaxations 2,160 x 4 s                           ~ 2.5 core-hours
+#         scans 130 x 30 s                                  ~ 1 core-hour
+#   test    240 x 96 = ~23,000 structures + 960 relaxations ~ 2.5 core-hours
+#   large    60 x ~100 = ~6,000 structures (0.4 s) + 240 relaxations of
+#            ~100 steps (0.4 s each)                        ~ 3.5 core-hours
+#   total ~175,000 structures, ~18 core-hours: ~9-10 hours on 2 cores
+#   (estimated from the measured rates above; the run appends its own
+#   measured times to WORK/logs/timing.txt and the summary prints them).
+# Pilot (--pilot: 400 + 40 molecules, ~12 structures each, then one
+# relaxation per training molecule and 4 per test molecule): the ~5,800
+# cheap structures took 19 min on one thread (23:11-23:30 UTC), the 160 test
+# relaxations ~12 min, the 400 training ones ~40 min.
+set -euo pipefail
+
+ROOT=$(cd "$(dirname "$0")/.." && pwd)
+PY=/usr/bin/python3
+HELP=$ROOT/tools/dataset/structures.py
+
+usage() {
+  cat <<'EOF'
+usage: tools/make-dataset.sh [--pilot] [options]
+
+Builds the reference training set (train.jsonl), the held-out molecules'
+set (test.jsonl) and the larger-molecule extension set (large.jsonl) under
+the work directory. Seeded and resumable: run the same command again after an
+interruption and it continues where it stopped.
+
+  --pilot              small quick set: 400 training and 40 test molecules,
+                       ~12 structures each (4 conformers, 2 torsion-varied, one
+                       displacement of each, then one relaxation path per
+                       training molecule and four per test molecule), work
+                       directory data/pilot, one thread, no scans
+  --work DIR           work directory (default data/dataset; env ND_DATASET_DIR)
+  --seed S             seed of every random choice (default 1; env ND_DATASET_SEED)
+  --threads N          single points run at a time (default 2; env ND_DATASET_THREADS)
+  --sets LIST          which sets, of train,test,large (default all three;
+                       pilot: train,test)
+  --stages LIST        of conformers,torsions,thermal,relax,scans,summary (default all)
+  --train-molecules N  use the first N training molecules of the split (0: all)
+  --test-molecules N   the first N held-out molecules (0: all)
+  --large-molecules N  the first N larger molecules (0: all)
+  --conformers N       embeddings per molecule (default 8)
+  --torsions N         torsion-varied shapes per molecule (default 8)
+  --thermal-conformer N  displacements per conformer (default 3)
+  --thermal-torsion N  displacements per torsion-varied shape (default 2)
+  --relax N            conformers relaxed per training molecule (default 1)
+  --relax-test N       conformers relaxed per molecule of the test and large
+                       sets (default 4)
+  --every K            keep every K-th frame of a relaxation path (default 5)
+  --thermal-minimum N  small displacements about each minimum (default 2)
+  --scan-fraction F    fraction of molecules with a torsion scan (default 0.06)
+  --scan-step DEG      angle step of the scans (default 30: 12 angles)
+  --small FILE         the small-molecule list to split (default
+                       tools/molecules/small.smi)
+  --large FILE         the larger-molecule list (default tools/molecules/large.smi)
+  --test-fraction F    fraction of small molecules held out (default 0.1)
+  --audit N            structures audited per labelling call (default 3; the
+                       relaxation stage audits one per four chunks of 10
+                       molecules, the scans none: their structures come from
+                       the same reference program as the audited ones)
+  --audit-stages LIST  stages whose labelling is audited, of
+                       conformers,torsions,thermal,relax (default all four)
+  --help               this text
+
+Environment: ND_DATASET_DIR, ND_DATASET_SEED, ND_DATASET_THREADS as above;
+NADIR (the program, default build/nadir), ND_REFERENCE (the reference command,
+default tools/xtb-single-point).
+
+examples:
+  make dataset
+  nice -n 19 tools/make-dataset.sh --pilot
+  tools/make-dataset.sh --pilot --train-molecules 800     # extend the pilot
+EOF
+}
+
+main() {
+# ---------------------------------------------------------------- options
+WORK=${ND_DATASET_DIR:-}
+SEED=${ND_DATASET_SEED:-1}
+THREADS=${ND_DATASET_THREADS:-}
+SETS="" STAGES="conformers,torsions,thermal,relax,scans,summary"
+NTRAIN="" NTEST="" NLARGE=""
+CONF="" TORS="" TH_CONF="" TH_TORS="" RELAX="" RELAX_TEST="" EVERY=5 TH_MIN="" SCANFRAC="" AUDIT=3
+AUDIT_STAGES=conformers,torsions,thermal,relax SCANSTEP=30 SMALL=$ROOT/tools/molecules/small.smi LARGE=$ROOT/tools/molecules/large.smi TESTFRAC=0.1
+PILOT=0
+while [ $# -gt 0 ]; do
+  case "$1" in
+    --pilot) PILOT=1; shift; continue ;;
+    --help|-h) usage; exit 0 ;;
+  esac
+  [ $# -ge 2 ] || { echo "make-dataset: $1 needs a value (see --help)" >&2; exit 2; }
+  case "$1" in
+    --work) WORK=$2 ;;
+    --seed) SEED=$2 ;;
+    --threads) THREADS=$2 ;;
+    --sets) SETS=$2 ;;
+    --stages) STAGES=$2 ;;
+    --train-molecules) NTRAIN=$2 ;;
+    --test-molecules) NTEST=$2 ;;
+    --large-molecules) NLARGE=$2 ;;
+    --conformers) CONF=$2 ;;
+    --torsions) TORS=$2 ;;
+    --thermal-conformer) TH_CONF=$2 ;;
+    --thermal-torsion) TH_TORS=$2 ;;
+    --relax) RELAX=$2 ;;
+    --every) EVERY=$2 ;;
+    --thermal-minimum) TH_MIN=$2 ;;
+    --relax-test) RELAX_TEST=$2 ;;
+    --scan-fraction) SCANFRAC=$2 ;;
+    --audit) AUDIT=$2 ;;
+    --scan-step) SCANSTEP=$2 ;;
+    --audit-stages) AUDIT_STAGES=$2 ;;
+    --small) SMALL=$2 ;;
+    --large) LARGE=$2 ;;
+    --test-fraction) TESTFRAC=$2 ;;
+    *) echo "make-dataset: unknown option '$1' (see --help)" >&2; exit 2 ;;
+  esac
+  shift 2
+done
+if [ $PILOT = 1 ]; then
+  : "${WORK:=$ROOT/data/pilot}" "${THREADS:=1}" "${SETS:=train,test}"
+  : "${NTRAIN:=400}" "${NTEST:=40}" "${NLARGE:=0}"
+  : "${CONF:=4}" "${TORS:=2}" "${TH_CONF:=1}" "${TH_TORS:=1}" "${RELAX:=1}" "${RELAX_TEST:=4}" "${TH_MIN:=1}" "${SCANFRAC:=0}"
+  AUDIT=2
+else
+  : "${WORK:=$ROOT/data/dataset}" "${THREADS:=2}" "${SETS:=train,test,large}"
+  : "${NTRAIN:=0}" "${NTEST:=0}" "${NLARGE:=0}"
+  : "${CONF:=8}" "${TORS:=8}" "${TH_CONF:=3}" "${TH_TORS:=2}" "${RELAX:=1}" "${RELAX_TEST:=4}" "${TH_MIN:=2}" "${SCANFRAC:=0.06}"
+fi
+NADIR=${NADIR:-$ROOT/build/nadir}
+# A private copy of the program: others may rebuild build/ during a long run.
+mkdir -p "$WORK/bin"
+[ -x "$NADIR" ] || { echo "make-dataset: $NADIR not built (run make)" >&2; exit 1; }
+cp "$NADIR" "$WORK/bin/nadir.tmp" && mv "$WORK/bin/nadir.tmp" "$WORK/bin/nadir"
+NADIR=$WORK/bin/nadir
+REF=${ND_REFERENCE:-$ROOT/tools/xtb-single-point}
+has() { case ",$1," in *",$2,"*) return 0 ;; esac; return 1; }
+
+# ---------------------------------------------------------------- checks
+if [ -z "${ND_REFERENCE:-}" ]; then
+  ND_DEPS_EXTRA=xtb "$ROOT/tools/deps.sh"
+fi
+[ -x "$NADIR" ] || { echo "make-dataset: $NADIR not built (run make)" >&2; exit 1; }
+mkdir -p "$WORK"/{split,gen,labels,logs,relax,scans}
+WORK=$(cd "$WORK" && pwd)
+LOG=$WORK/logs/run.log
+START=$(date +%s)
+say() { echo "make-dataset [$(date -u +%H:%M:%S)] $*" | tee -a "$LOG" >&2; }
+say "work $WORK, seed $SEED, threads $THREADS, sets $SETS, stages $STAGES"
+say "per molecule: $CONF conformers, $TORS torsion-varied, thermal $TH_CONF/conformer $TH_TORS/torsion," \
+    "$RELAX relaxations (every $EVERY-th frame, $TH_MIN near each minimum), scans on $SCANFRAC"
+# Parallel work: nadir label --threads, and the records of a relaxation chunk
+# (OMP_NUM_THREADS); one single point per core, never threads inside one.
+export OMP_NUM_THREADS=1
+
+# Labels IN (XYZ, title = molecule key) into SET.jsonl with TAG; a marker file
+# makes a finished call free on a restart (nadir label would skip the
+# structures anyway, but would audit again).
+label() {  # label SET TAG IN NAME [AUDIT]
+  local set=$1 tag=$2 in=$3 name=$4 audit=${5:-$AUDIT}
+  has "$AUDIT_STAGES" "${name%%.*}" || audit=0
+  local done=$WORK/labels/$set.$name.done
+  [ -f "$done" ] && return 0
+  [ -s "$in" ] || { touch "$done"; return 0; }
+  local t0 rc=0 n
+  t0=$(date +%s.%N)
+  n=$(grep -c -E '^[0-9]+$' "$in" || true)
+  "$NADIR" label "$in" -o "$WORK/$set.jsonl" --potential-command "$REF" --key-from title \
+      --threads "$THREADS" --audit "$audit" --seed "$SEED" --tag "$tag" \
+      </dev/null >>"$WORK/logs/label.$set.log" 2>&1 || rc=$?
+  if [ $rc != 0 ] && [ $rc != 5 ]; then
+    say "label $set/$name failed (exit $rc), see $WORK/logs/label.$set.log"; tail -3 "$WORK/logs/label.$set.log" >&2
+    return 1
+  fi
+  [ $rc = 5 ] && say "label $set/$name: some structures failed or were refused by the audit (see log)"
+  touch "$done"
+  echo "$set $name $n $(date +%s.%N) $t0" >>"$WORK/logs/timing.txt"
+  say "labelled $set/$name: $n structures in $(awk -v a="$t0" -v b="$(date +%s.%N)" 'BEGIN{printf "%.0f", b-a}') s" \
+      "($(grep -c . "$WORK/$set.jsonl") lines in $set.jsonl)"
+}
+
+# ---------------------------------------------------------------- split
+if [ ! -f "$WORK/split/test.smi" ]; then
+  $PY "$HELP" split "$SMALL" "$WORK/split" --seed "$SEED" --test-fraction "$TESTFRAC"
+fi
+$PY "$HELP" head "$WORK/split/train.smi" "$WORK/split/train.use.smi" "$NTRAIN"
+$PY "$HELP" head "$WORK/split/test.smi" "$WORK/split/test.use.smi" "$NTEST"
+$PY "$HELP" head "$LARGE" "$WORK/split/large.use.smi" "$NLARGE"
+for s in train test large; do
+  has "$SETS" $s && say "set $s: $(grep -c . "$WORK/split/$s.use.smi") molecules"
+done
+
+# Generated files are named by their parameters, so changing a count makes
+# new files; the structures of molecules already done come out identical
+# (seeded per molecule) and nadir label skips them.
+for s in train test large; do
+  has "$SETS" $s || continue
+  case $s in train) nm=$NTRAIN ;; test) nm=$NTEST ;; large) nm=$NLARGE ;; esac
+  G=$WORK/gen/$s.n$nm
+  # --- conformers
+  if has "$STAGES" conformers || has "$STAGES" torsions || has "$STAGES" thermal || has "$STAGES" relax \
+     || has "$STAGES" scans; then
+    if [ ! -f "$G.c$CONF.sdf" ]; then
+      "$NADIR" build "$WORK/split/$s.use.smi" -o "$G.c$CONF.sdf.tmp" --count "$CONF" --seed "$SEED" \
+          2>>"$WORK/logs/build.log" || { rc=$?; [ $rc = 5 ] || { say "build $s failed ($rc)"; exit 1; }; }
+      mv "$G.c$CONF.sdf.tmp" "$G.c$CONF.sdf"
+      "$NADIR" convert "$G.c$CONF.sdf" "$G.c$CONF.xyz" 2>>"$WORK/logs/build.log"
+      say "conformers $s: $(grep -c '^\$\$\$\$' "$G.c$CONF.sdf") structures"
+    fi
+  fi
+done
+
+for stage in conformers torsions thermal; do
+  has "$STAGES" $stage || continue
+  for s in train test large; do
+    has "$SETS" $s || continue
+    case $s in train) nm=$NTRAIN ;; test) nm=$NTEST ;; large) nm=$NLARGE ;; esac
+    G=$WORK/gen/$s.n$nm
+    case $stage in
+      conformers)
+        label $s conformer "$G.c$CONF.xyz" "conformers.n$nm.c$CONF" ;;
+      torsions)
+        [ -f "$G.c$CONF.t$TORS.xyz" ] || $PY "$HELP" torsions "$G.c$CONF.sdf" "$G.c$CONF.t$TORS.xyz" \
+            --per-molecule "$TORS" --seed "$SEED" 2>>"$LOG"
+        label $s "torsion varied" "$G.c$CONF.t$TORS.xyz" "torsions.n$nm.c$CONF.t$TORS" ;;
+      thermal)
+        [ -f "$G.c$CONF.th$TH_CONF.xyz" ] || $PY "$HELP" thermal "$G.c$CONF.xyz" "$G.c$CONF.th$TH_CONF.xyz" \
+            --per-structure "$TH_CONF" --seed "$SEED" 2>>"$LOG"
+        label $s thermal "$G.c$CONF.th$TH_CONF.xyz" "thermal.n$nm.c$CONF.th$TH_CONF"
+        if [ -f "$G.c$CONF.t$TORS.xyz" ]; then
+          [ -f "$G.c$CONF.t$TORS.th$TH_TORS.xyz" ] || $PY "$HELP" thermal "$G.c$CONF.t$TORS.xyz" \
+              "$G.c$CONF.t$TORS.th$TH_TORS.xyz" --per-structure "$TH_TORS" --seed "$SEED" 2>>"$LOG"
+          label $s thermal "$G.c$CONF.t$TORS.th$TH_TORS.xyz" "thermal.n$nm.c$CONF.t$TORS.th$TH_TORS"
+        fi ;;
+    esac
+  done
+done
+
+# ---------------------------------------------------------------- relax
+# In chunks of CHUNK molecules, each finished chunk marked, so an interrupted
+# run redoes at most one chunk's relaxations.
+CHUNK=10
+if has "$STAGES" relax; then
+  for s in test large train; do   # the test minima first: the evaluation needs them
+    has "$SETS" $s || continue
+    RELAX_S=$RELAX; [ $s = train ] || RELAX_S=$RELAX_TEST
+    [ "$RELAX_S" -gt 0 ] || continue
+    case $s in train) nm=$NTRAIN ;; test) nm=$NTEST ;; large) nm=$NLARGE ;; esac
+    G=$WORK/gen/$s.n$nm
+    R=$WORK/relax/$s.c$CONF.r$RELAX_S
+    mkdir -p "$R"
+    [ -f "$R/start.n$nm.xyz" ] || $PY "$HELP" pick "$G.c$CONF.sdf" "$R/start.n$nm.xyz" --per-molecule "$RELAX_S"
+    # chunk K holds molecules CHUNK*K .. of the list, named by K and its
+    # molecule count, so a longer list (a larger --train-molecules) finds the
+    # full chunks already relaxed
+    $PY - "$R/start.n$nm.xyz" "$R" "$CHUNK" >"$R/chunks.n$nm.txt" <<'EOF'
+import os, sys
+src, outdir, chunk = sys.argv[1], sys.argv[2], int(sys.argv[3])
+lines = open(src).read().split("\n")
+mols, order, i = {}, [], 0
+while i < len(lines):
+    if not lines[i].strip():
+        i += 1; continue
+    n = int(lines[i]); key = lines[i + 1].split()[0]
+    if key not in mols:
+        mols[key] = []; order.append(key)
+    mols[key].append("\n".join(lines[i:i + 2 + n]) + "\n"); i += 2 + n
+for c in range(0, len(order), chunk):
+    keys = order[c:c + chunk]
+    path = "%s/chunk%04d-%02d.xyz" % (outdir, c // chunk, len(keys))
+    if not os.path.exists(path):
+        open(path + ".tmp", "w").write("".join("".join(mols[k]) for k in keys))
+        os.replace(path + ".tmp", path)
+    print(path)
+EOF
+    while read -r c; do
+      [ -f "$c" ] || continue
+      b=${c%.xyz}
+      if [ ! -f "$b.opt.done" ]; then
+        t0=$(date +%s)
+        rm -f "$b.traj.xyz"
+        rc=0
+        OMP_NUM_THREADS=$THREADS "$NADIR" optimize "$c" --potential-command "$REF" --trajectory "$b.traj.xyz" -o "$b.min.xyz" \
+            --report "$b.report.json" </dev/null >"$b.opt.log" 2>&1 || rc=$?
+        if [ $rc != 0 ] && [ $rc != 5 ]; then say "relax $c failed (exit $rc), see $b.opt.log"; continue; fi
+        touch "$b.opt.done"
+        echo "relax $(basename "$b") $(grep -c -E '^[0-9]+$' "$c") $(( $(date +%s) - t0 ))" >>"$WORK/logs/timing.txt"
+      fi
+      [ -f "$b.frames.xyz" ] || $PY "$HELP" frames "$b.traj.xyz" "$b.frames.xyz" --every "$EVERY" 2>>"$LOG"
+      [ -f "$b.minima.xyz" ] || $PY "$HELP" retitle "$b.min.xyz" "$b.minima.xyz"
+      [ -f "$b.near.xyz" ] || $PY "$HELP" thermal "$b.minima.xyz" "$b.near.xyz" --per-structure "$TH_MIN" \
+          --seed "$SEED" --heavy 0.025 --hydrogen 0.05 2>>"$LOG"
+      cn=$(basename "$b")
+      # one audit per four chunks: the paths hold the most strained structures
+      au=0; [ "$AUDIT" -gt 0 ] && case $cn in chunk???[048]-*) au=1 ;; esac
+      label $s "relaxation path" "$b.frames.xyz" "relax.$cn.c$CONF.r$RELAX_S.frames" $au || true
+      label $s minimum "$b.minima.xyz" "relax.$cn.c$CONF.r$RELAX_S.minima" 0 || true
+      label $s "thermal near minimum" "$b.near.xyz" "relax.$cn.c$CONF.r$RELAX_S.near" 0 || true
+    done <"$R/chunks.n$nm.txt"
+  done
+fi
+
+# ---------------------------------------------------------------- scans
+if has "$STAGES" scans && [ "$(awk -v f="$SCANFRAC" 'BEGIN{print (f > 0)}')" = 1 ]; then
+  for s in train test large; do
+    has "$SETS" $s || continue
+    case $s in train) nm=$NTRAIN ;; test) nm=$NTEST ;; large) nm=$NLARGE ;; esac
+    G=$WORK/gen/$s.n$nm
+    D=$WORK/scans/$s.c$CONF.f$SCANFRAC
+    [ -f "$D/scans.txt" ] || $PY "$HELP" scan-setup "$G.c$CONF.sdf" "$D" --fraction "$SCANFRAC" --seed "$SEED" 2>>"$LOG"
+    while read -r key tor; do
+      b=$D/$key
+      if [ ! -f "$b.scan.done" ]; then
+        t0=$(date +%s); rc=0
+        OMP_NUM_THREADS=1 "$NADIR" optimize "$b.xyz" --potential-command "$REF" --scan "$tor" --scan-range "-180,$((180 - SCANSTEP)),$SCANSTEP" \
+            -o "$b.scan.xyz" --report "$b.scan.json" </dev/null >"$b.scan.log" 2>&1 || rc=$?
+        if [ $rc != 0 ] && [ $rc != 5 ]; then say "scan $s/$key failed (exit $rc)"; continue; fi
+        touch "$b.scan.done"
+        echo "scan $s/$key $((360 / SCANSTEP)) $(( $(date +%s) - t0 ))" >>"$WORK/logs/timing.txt"
+      fi
+      [ -f "$b.points.xyz" ] || $PY "$HELP" retitle "$b.scan.xyz" "$b.points.xyz"
+      label $s "torsion scan" "$b.points.xyz" "scan.$key.c$CONF.f$SCANFRAC" 0 || true
+    done <"$D/scans.txt"
+  done
+fi
+
+# ---------------------------------------------------------------- summary
+if has "$STAGES" summary; then
+  $PY "$ROOT/tools/dataset/summary.py" "$WORK" --sets "$SETS" --seconds $(( $(date +%s) - START )) | tee -a "$LOG"
+fi
+say "done in $(( $(date +%s) - START )) s; datasets in $WORK"
+}
+
+# The whole run is one function, read before it starts, so editing this file
+# while a run is going does not disturb it.
+main "$@"
+exit $?
