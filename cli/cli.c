@@ -1,5 +1,6 @@
 #include "cli/cli.h"
 
+#include <cjson/cJSON.h>
 #include <errno.h>
 #include <limits.h>
 #include <math.h>
@@ -123,4 +124,14 @@ int cli_close_contact(const nd_molecule *mol, char *buf, size_t size)
         return 0;
     snprintf(buf, size, " (atoms %d and %d are only %.3f A apart)", a + 1, b + 1, best);
     return 1;
+}
+
+void cli_model_notice(const char *command, const char *path, const nd_model *model)
+{
+    cJSON *prov = cJSON_Parse(nd_model_provenance(model));
+    const cJSON *status = cJSON_GetObjectItemCaseSensitive(prov, "status");
+    if (cJSON_IsString(status) && status->valuestring[0])
+        fprintf(stderr, "nadir %s: note: model %s is marked \"%s\"\n", command, path,
+                status->valuestring);
+    cJSON_Delete(prov);
 }

@@ -47,4 +47,8 @@ int cli_close_contact(const nd_molecule *mol, char *buf, size_t size);
 int cli_parse_double(const char *s, double *out);
 int cli_parse_int(const char *s, int *out);
 
+/* Prints the model's provenance "status" (e.g. that it is a pilot model that
+ * does not meet the accuracy goals) to stderr, when the file states one. */
+void cli_model_notice(const char *command, const char *path, const nd_model *model);
+
 #endif

@@ -516,6 +516,8 @@ int cmd_conformers(int argc, char **argv)
         rc = cli_error(CMD, &err);
         goto out;
     }
+    if (model)
+        cli_model_notice(CMD, o.model, model);
     int from_string = !is_file(o.input);
     if (from_string) {
         /* a SMILES string on the command line, read as a one-line SMILES file */

@@ -284,6 +284,7 @@ int cmd_energy(int argc, char **argv)
         rc = cli_error(CMD, &err);
         goto out;
     }
+    cli_model_notice(CMD, mpath, model);
     int K = nd_model_members(model);
     if (nd_reader_open(&r, o.input, o.format, &err) != ND_OK) {
         rc = cli_error(CMD, &err);

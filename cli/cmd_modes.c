@@ -576,6 +576,8 @@ int cmd_modes(int argc, char **argv)
         rc = cli_error(CMD, &err);
         goto out;
     }
+    if (model)
+        cli_model_notice(CMD, o.model, model);
     if (nd_reader_open(&rd, o.input, o.format, &err) != ND_OK) {
         rc = cli_error(CMD, &err);
         goto out;

@@ -605,6 +605,8 @@ int cmd_optimize(int argc, char **argv)
         rc = cli_error(CMD, &err);
         goto out;
     }
+    if (model)
+        cli_model_notice(CMD, mpath, model);
     if (nd_reader_open(&r, o.input, o.format, &err) != ND_OK) {
         rc = cli_error(CMD, &err);
         goto out;

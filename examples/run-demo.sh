@@ -19,7 +19,7 @@ grep -v '^#' "$here/linkers.smi" | sed 's/^/   /'
 echo
 echo "== Conformers of each, ranked with the bundled model (nadir conformers):"
 "$nadir" conformers "$here/linkers.smi" -o "$out/linkers-conformers.sdf" \
-  --report "$out/linkers-report.json" --window 3 --max 8 --seed 7
+  --report "$out/linkers-report.json" --window 3 --max 6 --max-tries 240 --seed 7
 echo
 echo "== Files:"
 echo "   conformers (SD, one record per conformer, ranked): $out/linkers-conformers.sdf"

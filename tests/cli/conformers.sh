@@ -12,7 +12,11 @@ T="$TAP_TMP"
 check "help" "$NADIR" conformers --help
 if grep -q "usage: nadir conformers" "$TAP_TMP/out" && grep -q "potential-command" "$TAP_TMP/out"; then
   ok "help names the usage and the potential options"; else not_ok "help names the usage and the potential options"; fi
-check_fails "no potential: says one is needed" 2 "a potential is needed" "$NADIR" conformers CCCC
+# Without a bundled model next to the program or in the working directory:
+# a copy of the program in an empty directory.
+mkdir -p "$TAP_TMP/alone/bin" && cp "$NADIR" "$TAP_TMP/alone/bin/nadir"
+check_fails "no potential: says one is needed" 2 "a potential is needed" \
+  sh -c 'cd "$1" && ./bin/nadir conformers CCCC' sh "$TAP_TMP/alone"
 check_fails "bad window" 2 "--window needs a number" "$NADIR" conformers CCCC --window abc --potential-command true
 check_fails "model and command exclude each other" 2 "exclude each other" "$NADIR" conformers CCCC --model m --potential-command c
 check_fails "no input" 2 "no input given" "$NADIR" conformers --potential-command true

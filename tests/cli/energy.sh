@@ -59,7 +59,9 @@ check_fails "element outside the model" 3 "atom 2 (Br): element not covered by t
   "$NADIR" energy "$T/br.xyz" --model "$T/r.model"
 cat "$T/br.xyz" "$T/m.xyz" > "$T/mix.xyz"
 check_fails "some records failed" 5 "record 1" "$NADIR" energy "$T/mix.xyz" --model "$T/r.model"
-check_fails "no model" 2 "pass --model FILE" "$NADIR" energy "$T/m.xyz"
+# Without a bundled model next to the program or in the working directory.
+mkdir -p "$T/alone/bin" && cp "$NADIR" "$T/alone/bin/nadir"
+check_fails "no model" 2 "pass --model FILE" sh -c 'cd "$1" && ./bin/nadir energy "$2"' sh "$T/alone" "$T/m.xyz"
 printf 'not a model\n' > "$T/bad.model"
 check_fails "not a model file" 3 "not a nadir model file" "$NADIR" energy "$T/m.xyz" --model "$T/bad.model"
 head -c 5000 "$T/r.model" > "$T/cut.model"
