@@ -10,6 +10,7 @@
 /* core */
 #include "core/status.h"
 #include "core/units.h"
+#include "core/numeric.h"
 #include "core/elements.h"
 #include "core/molecule.h"
 #include "core/rng.h"

@@ -33,7 +33,7 @@ static double median(double *v, int n)
 
 int main(int argc, char **argv)
 {
-    double fmax = argc > 1 ? atof(argv[1]) : 0.05; /* kcal/mol/A */
+    double force_tol = argc > 1 ? atof(argv[1]) : 0.05; /* kcal/mol/A */
     int have_scipy = nd_test_scipy_available();
     int nmol = nd_test_molecule_count();
     double *plain = calloc((size_t)nmol, sizeof *plain), *pc = calloc((size_t)nmol, sizeof *pc),
@@ -42,7 +42,7 @@ int main(int argc, char **argv)
     int failures = 0;
     printf("force calls to reach largest force <= %g kcal/mol/A (bonded analytic test potential,\n"
            "start perturbed by 0.1 A; ranking preset otherwise; scipy = scipy.optimize L-BFGS-B)\n\n",
-           fmax);
+           force_tol);
     printf("%-18s %5s %8s %8s %8s %8s %9s %11s\n", "molecule", "atoms", "lbfgs", "lbfgs+pc", "fire",
            "scipy", "pc/scipy", "dE vs scipy");
     for (int i = 0; i < nmol; i++) {
@@ -65,7 +65,7 @@ int main(int argc, char **argv)
         double *x = malloc(bytes);
         nd_minimize_options o;
         nd_minimize_options_default(&o);
-        o.stop.max_force = fmax;
+        o.stop.max_force = force_tol;
         o.stop.rms_force = 1e30;  /* the largest force alone, as on scipy's side */
         o.stop.energy_change = 0; /* no early stop on a flat energy */
         o.stop.max_steps = 20000;
@@ -84,7 +84,7 @@ int main(int argc, char **argv)
         int s4 = -1;
         if (have_scipy) {
             memcpy(x, m.xyz, bytes);
-            s4 = nd_test_scipy_lbfgsb(&pot, n, x, fmax, 10, 20000, &rs);
+            s4 = nd_test_scipy_lbfgsb(&pot, n, x, force_tol, 10, 20000, &rs);
         }
         int ok = s1 == ND_OK && s2 == ND_OK && s3 == ND_OK && (!have_scipy || (s4 == 0 && rs.converged));
         failures += !ok;

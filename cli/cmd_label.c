@@ -238,7 +238,7 @@ static double plane_rms(int n, const double *x)
                 (a[2][2] - q) * (a[2][2] - q) + 2 * p1;
     double p = sqrt(p2 / 6);
     if (p < 1e-300)
-        return sqrt(fmax(q, 0));
+        return sqrt(nd_larger(q, 0));
     double b[3][3];
     for (int i = 0; i < 3; i++)
         for (int j = 0; j < 3; j++)
@@ -248,7 +248,7 @@ static double plane_rms(int n, const double *x)
                 b[0][2] * (b[1][0] * b[2][1] - b[1][1] * b[2][0])) / 2;
     double phi = r <= -1 ? M_PI / 3 : r >= 1 ? 0 : acos(r) / 3;
     double smallest = q + 2 * p * cos(phi + 2 * M_PI / 3);
-    return sqrt(fmax(smallest, 0));
+    return sqrt(nd_larger(smallest, 0));
 }
 
 /* 1 if two atoms have the same x, y or z (within COINCIDENT). Measured with

@@ -68,16 +68,16 @@ double nd_converge_rms_force(int n, const double *g)
  * Non-finite forces never pass (comparisons with NaN are false). */
 int nd_converge_test(const nd_converge *c, int n, const double *g, double de, nd_stop *why)
 {
-    double fmax = nd_converge_max_force(n, g);
+    double largest = nd_converge_max_force(n, g);
     double frms = nd_converge_rms_force(n, g);
     if (why)
         *why = ND_STOP_NONE;
-    if (fmax <= c->max_force && frms <= c->rms_force && c->max_force > 0 && c->rms_force > 0) {
+    if (largest <= c->max_force && frms <= c->rms_force && c->max_force > 0 && c->rms_force > 0) {
         if (why)
             *why = ND_STOP_FORCE;
         return ND_OK;
     }
-    if (c->energy_change > 0 && de >= 0 && de <= c->energy_change && fmax <= c->energy_max_force) {
+    if (c->energy_change > 0 && de >= 0 && de <= c->energy_change && largest <= c->energy_max_force) {
         if (why)
             *why = ND_STOP_ENERGY;
         return ND_OK;

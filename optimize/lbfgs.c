@@ -17,6 +17,7 @@
  * fails, discards the memory and restarts along -H0 g; a failure along that
  * direction is a stall (ND_ECOMPUTE; the caller reports "not converged"). */
 #include "optimize/minimize.h"
+#include "core/numeric.h"
 
 #include <math.h>
 #include <stdlib.h>
@@ -204,10 +205,10 @@ static int line_search(lbfgs *st, const nd_energy *pot, const double *x, double 
      * lowest energy found; the minimiser lies between lo and hi. */
     while (calls < maxcalls) {
         double w = fabs(hi.a - lo.a);
-        if (w <= 1e-14 * fmax(lo.a, hi.a))
+        if (w <= 1e-14 * nd_larger(lo.a, hi.a))
             break;
         double a = cubic_min(lo.a, lo.f, lo.df, hi.a, hi.f, hi.df);
-        double left = fmin(lo.a, hi.a) + 0.1 * w, right = fmax(lo.a, hi.a) - 0.1 * w;
+        double left = fmin(lo.a, hi.a) + 0.1 * w, right = nd_larger(lo.a, hi.a) - 0.1 * w;
         if (!(a >= left && a <= right))
             a = 0.5 * (lo.a + hi.a);
         cur.a = a;

@@ -1,5 +1,6 @@
 /* Normal-mode analysis of a finite-difference Hessian. */
 #include "optimize/modes.h"
+#include "core/numeric.h"
 
 #include "core/elements.h"
 #include "core/units.h"
@@ -469,7 +470,7 @@ int nd_modes_frame(const nd_modes *m, int mode, int natoms_mol, const double *x0
     const double *v = m->vec + (size_t)mode * 3 * m->natoms;
     double big = 0;
     for (int f = 0; f < m->natoms; f++)
-        big = fmax(big, sqrt(v[3 * f] * v[3 * f] + v[3 * f + 1] * v[3 * f + 1] + v[3 * f + 2] * v[3 * f + 2]));
+        big = nd_larger(big, sqrt(v[3 * f] * v[3 * f] + v[3 * f + 1] * v[3 * f + 1] + v[3 * f + 2] * v[3 * f + 2]));
     double s = big > 0 ? amplitude / big * sin(2.0 * M_PI * k / nframes) : 0.0;
     memcpy(out, x0, sizeof(double) * 3 * (size_t)natoms_mol);
     for (int f = 0; f < m->natoms; f++)

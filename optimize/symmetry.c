@@ -1,5 +1,6 @@
 /* Rotational symmetry number from coordinates (see symmetry.h). */
 #include "optimize/symmetry.h"
+#include "core/numeric.h"
 
 #include "optimize/modes.h"
 
@@ -64,7 +65,7 @@ static int ring_gcd(int n, const int *z, const double *mass, const double *r, co
             continue;
         const double *v = r + 3 * i;
         double h = a[0] * v[0] + a[1] * v[1] + a[2] * v[2];
-        double rho = sqrt(fmax(0.0, v[0] * v[0] + v[1] * v[1] + v[2] * v[2] - h * h));
+        double rho = sqrt(nd_larger(0.0, v[0] * v[0] + v[1] * v[1] + v[2] * v[2] - h * h));
         used[i] = 1;
         if (rho < tol)
             continue; /* on the axis */
@@ -74,7 +75,7 @@ static int ring_gcd(int n, const int *z, const double *mass, const double *r, co
                 continue;
             const double *u = r + 3 * j;
             double hj = a[0] * u[0] + a[1] * u[1] + a[2] * u[2];
-            double rj = sqrt(fmax(0.0, u[0] * u[0] + u[1] * u[1] + u[2] * u[2] - hj * hj));
+            double rj = sqrt(nd_larger(0.0, u[0] * u[0] + u[1] * u[1] + u[2] * u[2] - hj * hj));
             if (fabs(hj - h) < tol && fabs(rj - rho) < tol) {
                 used[j] = 1;
                 count++;

@@ -1,6 +1,7 @@
 /* Models: construction from a spec, accessors, domain checks and the model
  * file (format in model.h). */
 #include "potential/model.h"
+#include "core/numeric.h"
 
 #include "core/elements.h"
 #include "core/rng.h"
@@ -187,7 +188,7 @@ int nd_model_elements(const nd_model *m, const int **z)
 
 double nd_model_cutoff(const nd_model *m)
 {
-    return fmax(m->desc.radial_cutoff, m->desc.nangular ? m->desc.angular_cutoff : 0);
+    return nd_larger(m->desc.radial_cutoff, m->desc.nangular ? m->desc.angular_cutoff : 0);
 }
 
 int nd_model_members(const nd_model *m) { return m->nmembers; }

@@ -1,5 +1,6 @@
 /* Cell-list neighbour search; see neighbors.h. */
 #include "potential/neighbors.h"
+#include "core/numeric.h"
 
 #include <math.h>
 #include <stdlib.h>
@@ -106,7 +107,7 @@ int nd_neighbors_build(nd_neighbors *nb, int nstruct, int n, const double *x, do
                 if (!isfinite(v))
                     return nd_fail(err, ND_ECOMPUTE, "atom %d: coordinate is not finite", i + 1);
                 lo[k] = fmin(lo[k], v);
-                hi[k] = fmax(hi[k], v);
+                hi[k] = nd_larger(hi[k], v);
             }
         grid_info *g = &grids[s];
         if (n == 0) {

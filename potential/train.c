@@ -9,6 +9,7 @@
  * they are summed in chunk order, so the bits do not depend on the number
  * of threads. */
 #include "potential/train.h"
+#include "core/numeric.h"
 
 #include "core/elements.h"
 #include "core/rng.h"
@@ -1261,7 +1262,7 @@ int nd_train_epoch(nd_train *t, nd_train_epoch_report *rep, nd_error *err)
         } else if ((mk->since_loss += 1) >= t->cfg.lr_patience) {
             if (mk->lr <= t->cfg.min_learning_rate)
                 floor_plateau = 1;
-            mk->lr = fmax(mk->lr * 0.5, t->cfg.min_learning_rate);
+            mk->lr = nd_larger(mk->lr * 0.5, t->cfg.min_learning_rate);
             mk->since_loss = 0;
         }
         if (mk->since_crit >= t->cfg.stop_patience || floor_plateau || !isfinite(loss))

@@ -6,6 +6,7 @@
 #define ND_FUZZ_COMMON_H
 
 #include "core/format.h"
+#include "core/numeric.h"
 #include "core/sdf.h"
 #include "core/xyz.h"
 
@@ -51,7 +52,7 @@ static void fuzz_round_trip(nd_format fmt, const nd_molecule *m)
             if (back.z[i] != m->z[i])
                 __builtin_trap();
             for (int k = 0; k < 3; k++)
-                if (!(fabs(back.xyz[3 * i + k] - m->xyz[3 * i + k]) <= tol * fmax(1.0, fabs(m->xyz[3 * i + k]))))
+                if (!(fabs(back.xyz[3 * i + k] - m->xyz[3 * i + k]) <= tol * nd_larger(1.0, fabs(m->xyz[3 * i + k]))))
                     __builtin_trap();
             if (fmt == ND_FORMAT_SDF &&
                 (back.formal_charge[i] != m->formal_charge[i] || back.isotope[i] != m->isotope[i]))

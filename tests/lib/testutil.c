@@ -1,4 +1,5 @@
 #include "tests/lib/testutil.h"
+#include "core/numeric.h"
 
 #include <math.h>
 #include <stdio.h>
@@ -18,7 +19,7 @@ void nd_test_assert_close(double a, double b, double tol, const char *sa, const 
 void nd_test_assert_rel_close(double a, double b, double rel, double floor, const char *sa,
                               const char *sb, const char *file, int line)
 {
-    double scale = fmax(fmax(fabs(a), fabs(b)), floor);
+    double scale = nd_larger(nd_larger(fabs(a), fabs(b)), floor);
     if (!(fabs(a - b) <= rel * scale)) {
         print_error("%s = %.17g, %s = %.17g: relative difference %.3g > %.3g\n", sa, a, sb, b,
                     fabs(a - b) / scale, rel);

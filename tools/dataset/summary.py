@@ -97,7 +97,7 @@ def summarise(rows):
     for k, v in mols.items():
         for e in set(v[0]["elements"]):
             mol_elements[e] += 1
-    fmin = fmax = 0.0
+    force_lo = force_hi = 0.0
     fsq = 0.0
     nf = 0
     epa = []
@@ -113,8 +113,8 @@ def summarise(rows):
             above.append(r["energy"] - e0)
             f = r.get("forces") or []
             if f:
-                fmin = min(fmin, min(f))
-                fmax = max(fmax, max(f))
+                force_lo = min(force_lo, min(f))
+                force_hi = max(force_hi, max(f))
                 fsq += sum(x * x for x in f)
                 nf += len(f)
     above.sort()
@@ -133,7 +133,7 @@ def summarise(rows):
             "median": round(pct(above, 0.5), 2), "p95": round(pct(above, 0.95), 2),
             "max": round(above[-1], 2) if above else 0.0},
         "force_component_kcal_mol_angstrom": {
-            "min": round(fmin, 2), "max": round(fmax, 2),
+            "min": round(force_lo, 2), "max": round(force_hi, 2),
             "rms": round((fsq / nf) ** 0.5, 3) if nf else 0.0},
     }
 

@@ -7,12 +7,12 @@ nadir's own nd_energy for every point scipy asks for, so both methods see
 exactly the same function and its force calls are counted the same way.
 
 Protocol on stdin/stdout, one line each, numbers as exact decimal text:
-  caller -> here:  "N FMAX MEMORY MAXITER"  then  "x_1 ... x_3N"
+  caller -> here:  "N MAX_FORCE MEMORY MAXITER"  then  "x_1 ... x_3N"
   here -> caller:  "x x_1 ... x_3N"          asking for energy and gradient
   caller -> here:  "E g_1 ... g_3N"          (or "error" to abort)
   here -> caller:  "done CALLS ITERATIONS CONVERGED E MAXFORCE"  then  "x_1 ... x_3N"
 The run stops at the first evaluated point whose largest atomic force
-(norm of an atom's three gradient components) is <= FMAX: the same test
+(norm of an atom's three gradient components) is <= MAX_FORCE: the same test
 nadir's minimisers use, so force calls are compared at the same tolerance.
 scipy's own stopping tests are switched off (ftol = gtol = 0); if it stops
 by itself first (line-search failure, iteration limit), CONVERGED is 0.
@@ -33,7 +33,7 @@ class Aborted(Exception):
 
 def main():
     head = sys.stdin.readline().split()
-    n, fmax, memory, maxiter = int(head[0]), float(head[1]), int(head[2]), int(head[3])
+    n, max_force, memory, maxiter = int(head[0]), float(head[1]), int(head[2]), int(head[3])
     x0 = np.array([float(v) for v in sys.stdin.readline().split()], dtype=float)
     assert x0.size == 3 * n
     state = {"calls": 0, "x": x0.copy(), "e": float("nan"), "g": np.zeros(3 * n)}
@@ -48,7 +48,7 @@ def main():
         g = np.array([float(v) for v in line[1:]], dtype=float)
         state["calls"] += 1
         state.update(x=np.array(x, dtype=float), e=e, g=g)
-        if np.max(np.linalg.norm(g.reshape(n, 3), axis=1)) <= fmax:
+        if np.max(np.linalg.norm(g.reshape(n, 3), axis=1)) <= max_force:
             raise Reached()
         return e, g
 

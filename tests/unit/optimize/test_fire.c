@@ -8,12 +8,12 @@
 #include <math.h>
 #include <string.h>
 
-static nd_minimize_options tight(double fmax)
+static nd_minimize_options tight(double force_tol)
 {
     nd_minimize_options o;
     nd_minimize_options_default(&o);
-    o.stop.max_force = fmax;
-    o.stop.rms_force = fmax;
+    o.stop.max_force = force_tol;
+    o.stop.rms_force = force_tol;
     o.stop.energy_change = 0;
     o.stop.max_steps = 20000;
     return o;

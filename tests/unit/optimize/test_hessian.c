@@ -1,5 +1,6 @@
 /* Finite-difference Hessian against the analytic Hessian of a Morse cluster. */
 #include "tests/lib/testutil.h"
+#include "core/numeric.h"
 
 #include "optimize/hessian.h"
 
@@ -103,7 +104,7 @@ static double max_diff(const double *a, const double *b, int m)
 {
     double d = 0;
     for (int i = 0; i < m; i++)
-        d = fmax(d, fabs(a[i] - b[i]));
+        d = nd_larger(d, fabs(a[i] - b[i]));
     return d;
 }
 

@@ -10,12 +10,12 @@
 #include <stdio.h>
 #include <string.h>
 
-static nd_minimize_options tight(double fmax)
+static nd_minimize_options tight(double force_tol)
 {
     nd_minimize_options o;
     nd_minimize_options_default(&o);
-    o.stop.max_force = fmax;
-    o.stop.rms_force = fmax;
+    o.stop.max_force = force_tol;
+    o.stop.rms_force = force_tol;
     o.stop.energy_change = 0; /* force criterion only */
     o.stop.max_steps = 5000;
     return o;
@@ -304,19 +304,19 @@ static void test_no_direction(void **state)
  * Debian's python3-scipy 1.10, run from the same start on the same C
  * function to the same largest-force tolerance: the same minimum energy
  * within 1e-8, force calls printed side by side. */
-static void compare(const char *name, const nd_energy *pot, int n, const double *x0, double fmax,
+static void compare(const char *name, const nd_energy *pot, int n, const double *x0, double force_tol,
                     double max_step)
 {
     double xa[3 * 64], xb[3 * 64];
     memcpy(xa, x0, 3 * (size_t)n * sizeof *xa);
     memcpy(xb, x0, 3 * (size_t)n * sizeof *xb);
-    nd_minimize_options o = tight(fmax);
+    nd_minimize_options o = tight(force_tol);
     o.stop.rms_force = 1e30; /* largest force only, as scipy's side is stopped */
     o.max_step = max_step;
     nd_minimize_result res;
     assert_int_equal(nd_minimize(&nd_minimizer_lbfgs, pot, n, xa, &o, &res, NULL), ND_OK);
     nd_test_scipy_result sp;
-    assert_int_equal(nd_test_scipy_lbfgsb(pot, n, xb, fmax, 10, 10000, &sp), 0);
+    assert_int_equal(nd_test_scipy_lbfgsb(pot, n, xb, force_tol, 10, 10000, &sp), 0);
     assert_true(sp.converged);
     assert_close(res.energy, sp.energy, 1e-8);
     printf("# %-22s nadir L-BFGS %4d force calls, scipy L-BFGS-B %4d (E %.10f vs %.10f)\n", name,

@@ -2,6 +2,7 @@
  * the formulas evaluated independently, and the contracted derivatives
  * against central finite differences. */
 #include "tests/lib/testutil.h"
+#include "core/numeric.h"
 
 #include "core/rng.h"
 #include "potential/descriptor.h"
@@ -216,7 +217,7 @@ static void test_gradient_fd(void **state)
             nd_descriptor_atom_grad(&p, nel, x, sp, i, nbr, nn, u, gi, gj, scr, iscr);
             double gmax = 0;
             for (int k = 0; k < 3 * nn; k++)
-                gmax = fmax(gmax, fabs(gj[k]));
+                gmax = nd_larger(gmax, fabs(gj[k]));
             for (int a = 0; a < n; a++)
                 for (int k = 0; k < 3; k++) {
                     double an;
@@ -233,8 +234,8 @@ static void test_gradient_fd(void **state)
                     double em = contracted(&p, nel, x, sp, n, i, u, G, scr, iscr);
                     x[3 * a + k] = x0;
                     double fd = (ep - em) / (2 * h);
-                    double rel = fabs(an - fd) / fmax(fabs(fd), 1e-3 * gmax + 1e-12);
-                    worst = fmax(worst, rel);
+                    double rel = fabs(an - fd) / nd_larger(fabs(fd), 1e-3 * gmax + 1e-12);
+                    worst = nd_larger(worst, rel);
                 }
         }
         assert_true(worst <= 1e-6);

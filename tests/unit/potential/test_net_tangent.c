@@ -3,6 +3,7 @@
  * nd_net_backward; the reverse pass against central differences of
  * sum(cE E + cT T) in every weight and bias; the primal-only mode. */
 #include "tests/lib/testutil.h"
+#include "core/numeric.h"
 
 #include "core/rng.h"
 #include "potential/model.h"
@@ -154,10 +155,10 @@ static void test_reverse(void **state)
                 double fm = objective(m, e, k, a0, ad, cE, cT, work);
                 *p = p0;
                 double fd = (fp - fm) / (2 * h);
-                double rel = fabs(fd - grad[gi]) / fmax(fabs(fd), 1e-3);
+                double rel = fabs(fd - grad[gi]) / nd_larger(fabs(fd), 1e-3);
                 if (rel > worst)
                     worst = rel;
-                assert_close(grad[gi], fd, 1e-7 * fmax(fabs(fd), 1e-2));
+                assert_close(grad[gi], fd, 1e-7 * nd_larger(fabs(fd), 1e-2));
             }
         }
     }

@@ -3,6 +3,7 @@
  * smoothness across the cutoffs, batch = single, bit-identical results at 1
  * and 2 threads, per-member results, the nd_energy adapter and its errors. */
 #include "tests/lib/testutil.h"
+#include "core/numeric.h"
 
 #include "core/rng.h"
 #include "potential/network.h"
@@ -86,7 +87,7 @@ static double fd_worst(nd_potential *p, int n, double *x, const double *g)
 {
     double gmax = 0, worst = 0;
     for (int i = 0; i < 3 * n; i++)
-        gmax = fmax(gmax, fabs(g[i]));
+        gmax = nd_larger(gmax, fabs(g[i]));
     for (int i = 0; i < 3 * n; i++) {
         const double h = 1e-4, x0 = x[i];
         double e[4];
@@ -97,7 +98,7 @@ static double fd_worst(nd_potential *p, int n, double *x, const double *g)
         }
         x[i] = x0;
         double fd = (8 * (e[0] - e[1]) - (e[2] - e[3])) / (12 * h);
-        worst = fmax(worst, fabs(fd - g[i]) / fmax(fabs(fd), 1e-3 * gmax));
+        worst = nd_larger(worst, fabs(fd - g[i]) / nd_larger(fabs(fd), 1e-3 * gmax));
     }
     return worst;
 }
@@ -147,7 +148,7 @@ static void test_invariance(void **state)
     assert_int_equal(nd_potential_compute(p, 1, x, &e0, g, NULL, NULL, NULL), ND_OK);
     double gmax = 0;
     for (int i = 0; i < 3 * n; i++)
-        gmax = fmax(gmax, fabs(g[i]));
+        gmax = nd_larger(gmax, fabs(g[i]));
     /* rotation from a random unit quaternion, plus a translation */
     double q[4], qn = 0;
     for (int k = 0; k < 4; k++) {
@@ -226,12 +227,12 @@ static void test_cutoff_continuity(void **state)
             double x[9] = {0, 0, 0, -1.21, 0.3, 0, cut[c] - 0.02 + h * s, 0, 0}, g[9];
             assert_int_equal(nd_potential_compute(p, 1, x, &e[s], g, NULL, NULL, NULL), ND_OK);
             f[s] = g[6];
-            fscale = fmax(fscale, fabs(g[6]));
+            fscale = nd_larger(fscale, fabs(g[6]));
         }
         for (int s = 1; s <= 40; s++)
-            worst_trap = fmax(worst_trap, fabs(e[s] - e[s - 1] - h * (f[s] + f[s - 1]) / 2));
+            worst_trap = nd_larger(worst_trap, fabs(e[s] - e[s - 1] - h * (f[s] + f[s - 1]) / 2));
         for (int s = 2; s <= 40; s++)
-            worst_d2 = fmax(worst_d2, fabs(f[s] - 2 * f[s - 1] + f[s - 2]));
+            worst_d2 = nd_larger(worst_d2, fabs(f[s] - 2 * f[s - 1] + f[s - 2]));
     }
     print_message("# cutoff scan: force scale %.3g, trapezoid %.3g, second difference %.3g\n",
                   fscale, worst_trap, worst_d2);
@@ -283,9 +284,9 @@ static void test_batch_and_threads(void **state)
         assert_int_equal(nd_potential_compute(p, 1, x + s * 3 * n, &es, gs, NULL, NULL, NULL), ND_OK);
         e1[s] = es;
         memcpy(g1 + s * 3 * n, gs, sizeof gs);
-        de = fmax(de, fabs(es - eb[s]) / fabs(es));
+        de = nd_larger(de, fabs(es - eb[s]) / fabs(es));
         for (int i = 0; i < 3 * n; i++)
-            dg = fmax(dg, fabs(gs[i] - gb[s * 3 * n + i]) / (1 + fabs(gs[i])));
+            dg = nd_larger(dg, fabs(gs[i] - gb[s * 3 * n + i]) / (1 + fabs(gs[i])));
     }
     print_message("# batch vs single: energy %.3g, gradient %.3g (relative)\n", de, dg);
     assert_true(de <= 1e-13 && dg <= 1e-13);

@@ -5,6 +5,7 @@
  * the split by molecule, the offsets by least squares, and rejected
  * datasets with their line numbers. */
 #include "tests/lib/testutil.h"
+#include "core/numeric.h"
 
 #include "core/elements.h"
 #include "core/energy.h"
@@ -177,7 +178,7 @@ static double gradient_check(double ew, double fw)
     assert_true(L0 > 0);
     double gmax = 0;
     for (size_t q = 0; q < P; q++)
-        gmax = fmax(gmax, fabs(g[q]));
+        gmax = nd_larger(gmax, fabs(g[q]));
     assert_true(gmax > 0);
     double worst = 0;
     /* every 3rd parameter (every 29th under the sanitizers), which visits
@@ -200,7 +201,7 @@ static double gradient_check(double ew, double fw)
         }
         theta[q] = p0;
         double fd = (4 * D[1] - D[0]) / 3;
-        double rel = fabs(fd - g[q]) / fmax(fabs(fd), 1e-4 * gmax);
+        double rel = fabs(fd - g[q]) / nd_larger(fabs(fd), 1e-4 * gmax);
         if (rel > worst) {
             worst = rel;
             if (getenv("ND_DEBUG"))
