@@ -135,3 +135,38 @@ void cli_model_notice(const char *command, const char *path, const nd_model *mod
                 status->valuestring);
     cJSON_Delete(prov);
 }
+
+/* Finds the model file when --model is not given: next to the program
+ * (BIN/../share/nadir/models/default.model), then in the source tree
+ * (potential/models/default.model from the current directory and from
+ * BIN/..). Writes the path into out; 0 if found. */
+int cli_find_model(char *out, size_t size, char *looked, size_t lsize)
+{
+    char exe[PATH_MAX], cand[3][PATH_MAX + 64];
+    int nc = 0;
+    ssize_t n = readlink("/proc/self/exe", exe, sizeof exe - 1);
+    if (n > 0) {
+        exe[n] = '\0';
+        char *slash = strrchr(exe, '/');
+        if (slash)
+            *slash = '\0';
+        snprintf(cand[nc++], sizeof cand[0], "%s/../share/nadir/models/default.model", exe);
+        snprintf(cand[nc++], sizeof cand[0], "%s/../potential/models/default.model", exe);
+    }
+    snprintf(cand[nc++], sizeof cand[0], "potential/models/default.model");
+    size_t k = 0;
+    looked[0] = '\0';
+    for (int i = 0; i < nc; i++) {
+        size_t len = strlen(cand[i]);
+        if (access(cand[i], R_OK) == 0 && len < size) {
+            memcpy(out, cand[i], len + 1);
+            return 0;
+        }
+        const char *parts[2] = {i ? ", " : "", cand[i]};
+        for (int q = 0; q < 2; q++)
+            for (const char *c = parts[q]; *c && k + 1 < lsize; c++)
+                looked[k++] = *c;
+        looked[k] = '\0';
+    }
+    return -1;
+}

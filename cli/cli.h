@@ -47,6 +47,13 @@ int cli_close_contact(const nd_molecule *mol, char *buf, size_t size);
 int cli_parse_double(const char *s, double *out);
 int cli_parse_int(const char *s, int *out);
 
+/* Finds the bundled model when no --model is given: next to the program
+ * (BIN/../share/nadir/models/default.model), then in the source tree
+ * (BIN/../potential/models/default.model, potential/models/default.model
+ * from the current directory). Writes the path to out and returns 0, or
+ * returns -1 with the places tried, comma-separated, in looked. */
+int cli_find_model(char *out, size_t size, char *looked, size_t lsize);
+
 /* Prints the model's provenance "status" (e.g. that it is a pilot model that
  * does not meet the accuracy goals) to stderr, when the file states one. */
 void cli_model_notice(const char *command, const char *path, const nd_model *model);

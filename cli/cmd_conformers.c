@@ -74,8 +74,8 @@ static void usage(FILE *f)
             "  --format F           read IN as F (smi, sdf, xyz) whatever its name\n"
             "  --help               this text\n"
             "\n"
-            "A potential is needed: nadir has no bundled model yet, so pass --model or\n"
-            "--potential-command (the bundled model will be the default once it exists).\n"
+            "Without --model or --potential-command the bundled model is used (a pilot\n"
+            "model: see README.md for its domain and accuracy).\n"
             "\n"
             "examples:\n"
             "  nadir conformers 'CCCC' --potential-command tools/xtb-single-point\n"
@@ -198,30 +198,6 @@ static int parse(int argc, char **argv, conf_options *o)
     return 0;
 }
 
-/* Looks for the bundled model: BIN/../share/nadir/models/default.model,
- * BIN/../potential/models/default.model, potential/models/default.model.
- * Writes the path to out; 0 if found. */
-static int find_model(char *out, size_t size)
-{
-    char exe[PATH_MAX], cand[3][PATH_MAX + 64];
-    int nc = 0;
-    ssize_t n = readlink("/proc/self/exe", exe, sizeof exe - 1);
-    if (n > 0) {
-        exe[n] = '\0';
-        char *slash = strrchr(exe, '/');
-        if (slash)
-            *slash = '\0';
-        snprintf(cand[nc++], sizeof cand[0], "%s/../share/nadir/models/default.model", exe);
-        snprintf(cand[nc++], sizeof cand[0], "%s/../potential/models/default.model", exe);
-    }
-    snprintf(cand[nc++], sizeof cand[0], "potential/models/default.model");
-    for (int i = 0; i < nc; i++)
-        if (access(cand[i], R_OK) == 0 && strlen(cand[i]) < size) {
-            snprintf(out, size, "%s", cand[i]);
-            return 0;
-        }
-    return -1;
-}
 
 /* The potential of one molecule: a model bound to its atoms, or an
  * external program. */
@@ -492,12 +468,11 @@ int cmd_conformers(int argc, char **argv)
         (rc = cli_check_output(CMD, "--report", o.report)) != 0)
         return rc;
 
-    char mpath[PATH_MAX + 64];
+    char mpath[PATH_MAX + 64], looked[4 * PATH_MAX];
     if (!o.model && !o.command) {
-        if (find_model(mpath, sizeof mpath) != 0)
+        if (cli_find_model(mpath, sizeof mpath, looked, sizeof looked) != 0)
             return cli_usage(CMD, "a potential is needed: pass --model FILE or --potential-command "
-                                  "CMD (nadir has no bundled model yet; once it exists it will be "
-                                  "the default)");
+                                  "CMD (no bundled model found; looked for %s)", looked);
         o.model = mpath;
     }
 

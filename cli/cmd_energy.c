@@ -46,7 +46,7 @@ static void usage(FILE *f)
             "  --format F      read IN as F (xyz, sdf) whatever its name\n"
             "  --help          this text\n"
             "\n"
-            "for tests (no trained model is bundled yet):\n"
+            "for tests:\n"
             "  --make-random-model OUT [--elements LIST] [--seed N]\n"
             "                  write a model with random weights (4 members, default\n"
             "                  descriptor; elements default H,C,N,O,F,S,Cl) to OUT and\n"
@@ -149,40 +149,6 @@ static int make_random_model(const energy_options *o)
     return ND_EXIT_OK;
 }
 
-/* Finds the model file when --model is not given: next to the program
- * (BIN/../share/nadir/models/default.model), then in the source tree
- * (potential/models/default.model from the current directory and from
- * BIN/..). Writes the path into out; 0 if found. */
-static int find_model(char *out, size_t size, char *looked, size_t lsize)
-{
-    char exe[PATH_MAX], cand[3][PATH_MAX + 64];
-    int nc = 0;
-    ssize_t n = readlink("/proc/self/exe", exe, sizeof exe - 1);
-    if (n > 0) {
-        exe[n] = '\0';
-        char *slash = strrchr(exe, '/');
-        if (slash)
-            *slash = '\0';
-        snprintf(cand[nc++], sizeof cand[0], "%s/../share/nadir/models/default.model", exe);
-        snprintf(cand[nc++], sizeof cand[0], "%s/../potential/models/default.model", exe);
-    }
-    snprintf(cand[nc++], sizeof cand[0], "potential/models/default.model");
-    size_t k = 0;
-    looked[0] = '\0';
-    for (int i = 0; i < nc; i++) {
-        size_t len = strlen(cand[i]);
-        if (access(cand[i], R_OK) == 0 && len < size) {
-            memcpy(out, cand[i], len + 1);
-            return 0;
-        }
-        const char *parts[2] = {i ? ", " : "", cand[i]};
-        for (int q = 0; q < 2; q++)
-            for (const char *c = parts[q]; *c && k + 1 < lsize; c++)
-                looked[k++] = *c;
-        looked[k] = '\0';
-    }
-    return -1;
-}
 
 /* Results of one record. */
 typedef struct {
@@ -261,10 +227,10 @@ int cmd_energy(int argc, char **argv)
     char mpath[PATH_MAX + 64], looked[4 * PATH_MAX];
     if (o.model)
         snprintf(mpath, sizeof mpath, "%s", o.model);
-    else if (find_model(mpath, sizeof mpath, looked, sizeof looked) != 0)
+    else if (cli_find_model(mpath, sizeof mpath, looked, sizeof looked) != 0)
         return cli_usage(CMD,
-                         "no model given and no bundled model found (nadir has none yet; looked "
-                         "for %s): pass --model FILE",
+                         "no model given and no bundled model found (looked for %s): pass "
+                         "--model FILE",
                          looked);
 
     nd_error err;

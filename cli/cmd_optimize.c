@@ -544,31 +544,6 @@ static cJSON *point_json(const relax_result *rr, int scan, double emin)
     return j;
 }
 
-/* Finds the bundled model when neither --model nor --potential-command is
- * given: BIN/../share/nadir/models/default.model, then
- * potential/models/default.model from BIN/.. and from the current directory. */
-static int find_model(char *out, size_t size)
-{
-    char exe[PATH_MAX];
-    char cand[3][PATH_MAX + 64];
-    int nc = 0;
-    ssize_t len = readlink("/proc/self/exe", exe, sizeof exe - 1);
-    if (len > 0) {
-        exe[len] = '\0';
-        char *slash = strrchr(exe, '/');
-        if (slash)
-            *slash = '\0';
-        snprintf(cand[nc++], sizeof cand[0], "%s/../share/nadir/models/default.model", exe);
-        snprintf(cand[nc++], sizeof cand[0], "%s/../potential/models/default.model", exe);
-    }
-    snprintf(cand[nc++], sizeof cand[0], "potential/models/default.model");
-    for (int i = 0; i < nc; i++)
-        if (access(cand[i], R_OK) == 0 && strlen(cand[i]) < size) {
-            snprintf(out, size, "%s", cand[i]);
-            return 0;
-        }
-    return -1;
-}
 
 int cmd_optimize(int argc, char **argv)
 {
@@ -582,13 +557,13 @@ int cmd_optimize(int argc, char **argv)
         return cli_usage(CMD, "%s -: standard output carries the table (or --json); give a file "
                               "name ending in .xyz or .sdf",
                          o.output && strcmp(o.output, "-") == 0 ? "-o" : "--trajectory");
-    char mpath[PATH_MAX + 64];
+    char mpath[PATH_MAX + 64], looked[4 * PATH_MAX];
     if (!o.command) {
         if (o.model)
             snprintf(mpath, sizeof mpath, "%s", o.model);
-        else if (find_model(mpath, sizeof mpath) != 0)
-            return cli_usage(CMD, "no potential given and no bundled model found: pass --model FILE or "
-                                  "--potential-command CMD");
+        else if (cli_find_model(mpath, sizeof mpath, looked, sizeof looked) != 0)
+            return cli_usage(CMD, "no potential given and no bundled model found (looked for %s): "
+                                  "pass --model FILE or --potential-command CMD", looked);
     }
     nd_error err;
     nd_error_clear(&err);
