@@ -1,5 +1,6 @@
 #include "conformers/verify.h"
 
+#include "conformers/sample.h"
 #include "core/elements.h"
 
 #include <math.h>
@@ -39,30 +40,6 @@ double nd_verify_signed_volume(const double *x, int c, int n1, int n2, int n3)
            u[2] * (v[0] * w[1] - v[1] * w[0]);
 }
 
-/* Dihedral angle a-b-c-d in degrees, (-180, 180]. */
-static double dihedral(const double *x, int a, int b, int c, int d)
-{
-    double b1[3], b2[3], b3[3], n1[3], n2[3], m1[3];
-    for (int k = 0; k < 3; k++) {
-        b1[k] = x[3 * b + k] - x[3 * a + k];
-        b2[k] = x[3 * c + k] - x[3 * b + k];
-        b3[k] = x[3 * d + k] - x[3 * c + k];
-    }
-    n1[0] = b1[1] * b2[2] - b1[2] * b2[1];
-    n1[1] = b1[2] * b2[0] - b1[0] * b2[2];
-    n1[2] = b1[0] * b2[1] - b1[1] * b2[0];
-    n2[0] = b2[1] * b3[2] - b2[2] * b3[1];
-    n2[1] = b2[2] * b3[0] - b2[0] * b3[2];
-    n2[2] = b2[0] * b3[1] - b2[1] * b3[0];
-    double lb2 = sqrt(b2[0] * b2[0] + b2[1] * b2[1] + b2[2] * b2[2]);
-    m1[0] = n1[1] * b2[2] - n1[2] * b2[1];
-    m1[1] = n1[2] * b2[0] - n1[0] * b2[2];
-    m1[2] = n1[0] * b2[1] - n1[1] * b2[0];
-    double xx = n1[0] * n2[0] + n1[1] * n2[1] + n1[2] * n2[2];
-    double yy = (m1[0] * n2[0] + m1[1] * n2[1] + m1[2] * n2[2]) / (lb2 > 0 ? lb2 : 1);
-    return atan2(yy, xx) * 180.0 / M_PI;
-}
-
 /* Lowest-index neighbour of atom i other than skip, or -1. */
 static int lowest_other(const nd_molecule *m, int i, int skip)
 {
@@ -85,7 +62,7 @@ int nd_verify_double_bond_config(const nd_molecule *m, int b, const double *x)
     int na = lowest_other(m, a, c), nc = lowest_other(m, c, a);
     if (na < 0 || nc < 0)
         return ND_DB_NONE;
-    return fabs(dihedral(x, na, a, c, nc)) < 90.0 ? ND_DB_CIS : ND_DB_TRANS;
+    return fabs(nd_sampler_dihedral(x, na, a, c, nc)) < 90.0 ? ND_DB_CIS : ND_DB_TRANS;
 }
 
 /* 1 if bond b lies on a cycle of the bond graph (checked by a search from
@@ -238,7 +215,7 @@ nd_verify_verdict nd_verify_check(const nd_verify *v, const double *x, int *atom
     }
     for (int k = 0; k < v->ndb; k++) {
         const dbond *d = &v->dbs[k];
-        int conf = fabs(dihedral(x, d->na, d->a, d->b, d->nb)) < 90.0 ? ND_DB_CIS : ND_DB_TRANS;
+        int conf = fabs(nd_sampler_dihedral(x, d->na, d->a, d->b, d->nb)) < 90.0 ? ND_DB_CIS : ND_DB_TRANS;
         if (conf != d->config) {
             if (atom)
                 *atom = d->a;
