@@ -26,7 +26,7 @@ typedef struct {
 static void usage(FILE *f)
 {
     fprintf(f,
-            "usage: nadir build SMILES|FILE [-o OUT.sdf] [--count N] [--seed S]\n"
+            "usage: nadir build SMILES|FILE [-o OUT.sdf|OUT.xyz] [--count N] [--seed S]\n"
             "\n"
             "Builds 3D structures (hydrogens included) from SMILES by distance geometry,\n"
             "with the stereochemistry the SMILES states: @/@@ centres and / \\ double bonds.\n"
@@ -36,8 +36,9 @@ static void usage(FILE *f)
             "  SMILES        one molecule, e.g. 'CC(=O)Oc1ccccc1C(=O)O'\n"
             "  FILE          a file of SMILES, one per line, optional name after whitespace\n"
             "                ('-' reads standard input); each line becomes its records\n"
-            "  -o, --output OUT.sdf\n"
-            "                SD file to write (default: standard output)\n"
+            "  -o, --output OUT.sdf|OUT.xyz\n"
+            "                file to write, SD (bonds, stereo and the data items below\n"
+            "                kept) or XYZ, by its extension (default: SD on standard output)\n"
             "  --count N     structures per molecule from independent starts (default 1)\n"
             "  --seed S      seed of the random starts (default 1)\n"
             "  --help        this text\n"
@@ -258,7 +259,13 @@ int cmd_build(int argc, char **argv)
     nd_error err;
     nd_error_clear(&err);
     build_state st = {NULL, 0, 0};
-    if (nd_writer_open(&st.w, o.output, ND_FORMAT_SDF, &err) != ND_OK)
+    /* The output's extension chooses SD (bonds and stereo kept) or XYZ: a
+     * file named .xyz holding SD text would mislead every later reader. */
+    nd_format to = strcmp(o.output, "-") == 0 ? ND_FORMAT_SDF : nd_format_from_path(o.output);
+    if (to == ND_FORMAT_SMILES)
+        return cli_usage(CMD, "%s is named as a SMILES file; build writes 3D structures "
+                         "(name the output .sdf or .xyz)", o.output);
+    if (nd_writer_open(&st.w, o.output, to == ND_FORMAT_XYZ ? ND_FORMAT_XYZ : ND_FORMAT_SDF, &err) != ND_OK)
         return cli_error(CMD, &err);
     int last = ND_OK;
     struct stat sb;

@@ -10,6 +10,11 @@ grep -q "^examples:" "$T/out" && ok "--help shows examples" || not_ok "--help ex
 check_fails "no argument: usage error" 2 "expected one SMILES or file" "$NADIR" build
 check_fails "--count 0: usage error" 2 "--count needs a whole number" "$NADIR" build CCO --count 0
 check_fails "--seed -1: usage error" 2 "--seed needs a whole number" "$NADIR" build CCO --seed -1
+check_fails "-o x.smi: usage error" 2 "build writes 3D structures" "$NADIR" build CCO -o "$TAP_TMP/x.smi"
+"$NADIR" build CCO -o "$TAP_TMP/ethanol.xyz" 2>/dev/null
+check "-o x.xyz writes XYZ that reads back as XYZ" "$NADIR" inspect "$TAP_TMP/ethanol.xyz" --format xyz
+[ "$(head -1 "$TAP_TMP/ethanol.xyz")" = 9 ] && ok "-o x.xyz: first line is the atom count" \
+  || not_ok "-o x.xyz: first line is the atom count" "$(head -1 "$TAP_TMP/ethanol.xyz")"
 check_fails "bad SMILES: input error with its column" 3 "SMILES column 2: ring bond 1 never closed" "$NADIR" build C1CC
 check_fails "missing file: input error" 3 "cannot open" "$NADIR" build "$T/none.smi"
 
