@@ -11,7 +11,10 @@
 # point loses at most the structures being labelled):
 #   split      molecule split, seeded: 10% of small.smi held out entirely
 #              (test), the rest train; large.smi is a third set (extension
-#              test) that never enters training
+#              test) that never enters training; basis.smi (hand-written
+#              small molecules the generated list lacks, such as water,
+#              ammonia and ethane: the experiment checks need them) is a
+#              fourth, always trained on
 #   conformers distance-geometry embeddings from distinct starts (nadir build)
 #   torsions   shapes with rotatable bonds turned by random angles (our own
 #              script; clash check), from the conformers
@@ -32,7 +35,8 @@
 # against central differences of the energies, nadir label --audit); labels
 # that fail are refused.
 #
-# Output: WORK/train.jsonl, WORK/test.jsonl, WORK/large.jsonl (dataset format
+# Output: WORK/train.jsonl, WORK/test.jsonl, WORK/large.jsonl, WORK/basis.jsonl
+# (train on train + basis; dataset format
 # of potential/dataset.h; "tag" says which stage made each structure),
 # WORK/summary.json, WORK/compact/{test,large}.jsonl.gz, WORK/logs/.
 #
@@ -90,8 +94,8 @@ interruption and it continues where it stopped.
   --work DIR           work directory (default data/dataset; env ND_DATASET_DIR)
   --seed S             seed of every random choice (default 1; env ND_DATASET_SEED)
   --threads N          single points run at a time (default 2; env ND_DATASET_THREADS)
-  --sets LIST          which sets, of train,test,large (default all three;
-                       pilot: train,test)
+  --sets LIST          which sets, of train,test,large,basis (default all
+                       four; pilot: train,test)
   --stages LIST        of conformers,torsions,thermal,relax,scans,summary (default all)
   --train-molecules N  use the first N training molecules of the split (0: all)
   --test-molecules N   the first N held-out molecules (0: all)
@@ -110,6 +114,10 @@ interruption and it continues where it stopped.
   --small FILE         the small-molecule list to split (default
                        tools/molecules/small.smi)
   --large FILE         the larger-molecule list (default tools/molecules/large.smi)
+  --basis FILE         the basis list (default tools/molecules/basis.smi):
+                       molecules of 1-4 heavy atoms (water, ammonia, ethane,
+                       ...) that the generated list lacks, always trained on
+                       (basis.jsonl, relaxed like the test set)
   --test-fraction F    fraction of small molecules held out (default 0.1)
   --audit N            structures audited per labelling call (default 3; the
                        relaxation stage audits one per four chunks of 10
@@ -117,6 +125,14 @@ interruption and it continues where it stopped.
                        the same reference program as the audited ones)
   --audit-stages LIST  stages whose labelling is audited, of
                        conformers,torsions,thermal,relax (default all four)
+  --store DIR          label store to continue from and to save into (default
+                       for the full run in the default work directory: labels/
+                       of the repository; otherwise none): at the
+                       start, the labels and run state it holds are put into
+                       the work directory, at the end the new labels are
+                       packed into it (tools/dataset/store.py; run
+                       'tools/dataset/store.py save WORK DIR' to save a run
+                       that is still going)
   --help               this text
 
 Environment: ND_DATASET_DIR, ND_DATASET_SEED, ND_DATASET_THREADS as above;
@@ -139,7 +155,8 @@ SETS="" STAGES="conformers,torsions,thermal,relax,scans,summary"
 NTRAIN="" NTEST="" NLARGE=""
 CONF="" TORS="" TH_CONF="" TH_TORS="" RELAX="" RELAX_TEST="" EVERY=5 TH_MIN="" SCANFRAC="" AUDIT=3
 AUDIT_STAGES=conformers,torsions,thermal,relax SCANSTEP=30 SMALL=$ROOT/tools/molecules/small.smi LARGE=$ROOT/tools/molecules/large.smi TESTFRAC=0.1
-PILOT=0
+BASIS=$ROOT/tools/molecules/basis.smi
+PILOT=0 STORE=""
 while [ $# -gt 0 ]; do
   case "$1" in
     --pilot) PILOT=1; shift; continue ;;
@@ -169,7 +186,9 @@ while [ $# -gt 0 ]; do
     --audit-stages) AUDIT_STAGES=$2 ;;
     --small) SMALL=$2 ;;
     --large) LARGE=$2 ;;
+    --basis) BASIS=$2 ;;
     --test-fraction) TESTFRAC=$2 ;;
+    --store) STORE=$2 ;;
     *) echo "make-dataset: unknown option '$1' (see --help)" >&2; exit 2 ;;
   esac
   shift 2
@@ -180,7 +199,8 @@ if [ $PILOT = 1 ]; then
   : "${CONF:=4}" "${TORS:=2}" "${TH_CONF:=1}" "${TH_TORS:=1}" "${RELAX:=1}" "${RELAX_TEST:=4}" "${TH_MIN:=1}" "${SCANFRAC:=0}"
   AUDIT=2
 else
-  : "${WORK:=$ROOT/data/dataset}" "${THREADS:=2}" "${SETS:=train,test,large}"
+  [ -n "$WORK" ] || : "${STORE:=$ROOT/labels}"
+  : "${WORK:=$ROOT/data/dataset}" "${THREADS:=2}" "${SETS:=train,test,large,basis}"
   : "${NTRAIN:=0}" "${NTEST:=0}" "${NLARGE:=0}"
   : "${CONF:=8}" "${TORS:=8}" "${TH_CONF:=3}" "${TH_TORS:=2}" "${RELAX:=1}" "${RELAX_TEST:=4}" "${TH_MIN:=2}" "${SCANFRAC:=0.06}"
 fi
@@ -203,6 +223,10 @@ WORK=$(cd "$WORK" && pwd)
 LOG=$WORK/logs/run.log
 START=$(date +%s)
 say() { echo "make-dataset [$(date -u +%H:%M:%S)] $*" | tee -a "$LOG" >&2; }
+: "${STORE:=none}"
+if [ "$STORE" != none ] && [ -d "$STORE" ]; then
+  "$ROOT/tools/dataset/store.py" load "$STORE" "$WORK" | tee -a "$LOG" >&2
+fi
 say "work $WORK, seed $SEED, threads $THREADS, sets $SETS, stages $STAGES"
 say "per molecule: $CONF conformers, $TORS torsion-varied, thermal $TH_CONF/conformer $TH_TORS/torsion," \
     "$RELAX relaxations (every $EVERY-th frame, $TH_MIN near each minimum), scans on $SCANFRAC"
@@ -243,16 +267,17 @@ fi
 $PY "$HELP" head "$WORK/split/train.smi" "$WORK/split/train.use.smi" "$NTRAIN"
 $PY "$HELP" head "$WORK/split/test.smi" "$WORK/split/test.use.smi" "$NTEST"
 $PY "$HELP" head "$LARGE" "$WORK/split/large.use.smi" "$NLARGE"
-for s in train test large; do
+$PY "$HELP" head "$BASIS" "$WORK/split/basis.use.smi" 0
+for s in train test large basis; do
   has "$SETS" $s && say "set $s: $(grep -c . "$WORK/split/$s.use.smi") molecules"
 done
 
 # Generated files are named by their parameters, so changing a count makes
 # new files; the structures of molecules already done come out identical
 # (seeded per molecule) and nadir label skips them.
-for s in train test large; do
+for s in train test large basis; do
   has "$SETS" $s || continue
-  case $s in train) nm=$NTRAIN ;; test) nm=$NTEST ;; large) nm=$NLARGE ;; esac
+  case $s in train) nm=$NTRAIN ;; test) nm=$NTEST ;; large) nm=$NLARGE ;; basis) nm=0 ;; esac
   G=$WORK/gen/$s.n$nm
   # --- conformers
   if has "$STAGES" conformers || has "$STAGES" torsions || has "$STAGES" thermal || has "$STAGES" relax \
@@ -269,9 +294,9 @@ done
 
 for stage in conformers torsions thermal; do
   has "$STAGES" $stage || continue
-  for s in train test large; do
+  for s in train test large basis; do
     has "$SETS" $s || continue
-    case $s in train) nm=$NTRAIN ;; test) nm=$NTEST ;; large) nm=$NLARGE ;; esac
+    case $s in train) nm=$NTRAIN ;; test) nm=$NTEST ;; large) nm=$NLARGE ;; basis) nm=0 ;; esac
     G=$WORK/gen/$s.n$nm
     case $stage in
       conformers)
@@ -298,11 +323,11 @@ done
 # run redoes at most one chunk's relaxations.
 CHUNK=10
 if has "$STAGES" relax; then
-  for s in test large train; do   # the test minima first: the evaluation needs them
+  for s in test large basis train; do   # the test minima first: the evaluation needs them
     has "$SETS" $s || continue
     RELAX_S=$RELAX; [ $s = train ] || RELAX_S=$RELAX_TEST
     [ "$RELAX_S" -gt 0 ] || continue
-    case $s in train) nm=$NTRAIN ;; test) nm=$NTEST ;; large) nm=$NLARGE ;; esac
+    case $s in train) nm=$NTRAIN ;; test) nm=$NTEST ;; large) nm=$NLARGE ;; basis) nm=0 ;; esac
     G=$WORK/gen/$s.n$nm
     R=$WORK/relax/$s.c$CONF.r$RELAX_S
     mkdir -p "$R"
@@ -359,9 +384,9 @@ fi
 
 # ---------------------------------------------------------------- scans
 if has "$STAGES" scans && [ "$(awk -v f="$SCANFRAC" 'BEGIN{print (f > 0)}')" = 1 ]; then
-  for s in train test large; do
+  for s in train test large basis; do
     has "$SETS" $s || continue
-    case $s in train) nm=$NTRAIN ;; test) nm=$NTEST ;; large) nm=$NLARGE ;; esac
+    case $s in train) nm=$NTRAIN ;; test) nm=$NTEST ;; large) nm=$NLARGE ;; basis) nm=0 ;; esac
     G=$WORK/gen/$s.n$nm
     D=$WORK/scans/$s.c$CONF.f$SCANFRAC
     [ -f "$D/scans.txt" ] || $PY "$HELP" scan-setup "$G.c$CONF.sdf" "$D" --fraction "$SCANFRAC" --seed "$SEED" 2>>"$LOG"
@@ -384,6 +409,9 @@ fi
 # ---------------------------------------------------------------- summary
 if has "$STAGES" summary; then
   $PY "$ROOT/tools/dataset/summary.py" "$WORK" --sets "$SETS" --seconds $(( $(date +%s) - START )) | tee -a "$LOG"
+fi
+if [ "$STORE" != none ]; then
+  "$ROOT/tools/dataset/store.py" save "$WORK" "$STORE" | tee -a "$LOG" >&2
 fi
 say "done in $(( $(date +%s) - START )) s; datasets in $WORK"
 }

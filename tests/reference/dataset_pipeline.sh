@@ -55,4 +55,35 @@ check "a second run succeeds" run
 after=$(cat "$W"/*.jsonl | wc -l)
 [ "$before" = "$after" ] && ok "a second run labels nothing new" || not_ok "a second run labels nothing new" "$before -> $after lines"
 check "compact held-out set written" test -s "$W/compact/test.jsonl.gz"
+
+# A new machine: only the store survives. A counting reference command shows
+# that nothing is labelled or relaxed again.
+check "the labels are packed into a store" tools/dataset/store.py save "$W" "$T/store"
+printf '#!/bin/sh\necho call >>"%s"\nexec "%s" "$@"\n' "$T/calls" "$PWD/tools/xtb-single-point" >"$T/counting"
+chmod +x "$T/counting"
+export ND_REFERENCE="$T/counting"
+check "a run in a fresh work directory continues from the store" run --work "$T/w2" --store "$T/store"
+unset ND_REFERENCE
+[ ! -e "$T/calls" ] && ok "the continued run makes no reference call" \
+  || not_ok "the continued run makes no reference call" "$(wc -l <"$T/calls") calls"
+if /usr/bin/python3 - "$W" "$T/w2" >"$T/py2.out" 2>&1 <<'EOF'
+import json, sys
+def rows(w, s):
+    return {r["id"]: r for r in (json.loads(l) for l in open("%s/%s.jsonl" % (w, s)) if '"elements"' in l)}
+for s in ("train", "test"):
+    a, b = rows(sys.argv[1], s), rows(sys.argv[2], s)
+    assert a.keys() == b.keys(), "%s: %d vs %d structures" % (s, len(a), len(b))
+    for i in a:
+        x, y = a[i], b[i]
+        assert x["energy"] == y["energy"] and x["key"] == y["key"] and x["tag"] == y["tag"]
+        assert x["elements"] == y["elements"]
+        assert max(abs(p - q) for p, q in zip(x["coordinates"], y["coordinates"])) <= 0.5e-5 + 1e-12
+        assert max(abs(p - q) for p, q in zip(x["forces"], y["forces"])) <= 0.5e-3 + 1e-12
+print("ok")
+EOF
+then ok "the continued run holds the same labels (coordinates to 1e-5 A, forces to 1e-3)"; else
+  not_ok "the continued run holds the same labels (coordinates to 1e-5 A, forces to 1e-3)" "$(tail -3 "$T/py2.out")"; fi
+P=$(ls "$T"/store/train/*.ndpack | head -1)
+head -c 200 "$P" >"$T/store/train/9999.ndpack"
+check_fails "a truncated pack is refused, naming it" 1 "9999.ndpack" tools/dataset/store.py check "$T/store"
 finish
