@@ -5,6 +5,7 @@
 #include "cli/cli.h"
 
 #include <getopt.h>
+#include <limits.h>
 #include <math.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -30,7 +31,7 @@ typedef struct {
 static void usage(FILE *f)
 {
     fprintf(f,
-            "usage: nadir modes IN (--model FILE | --potential-command CMD) [options]\n"
+            "usage: nadir modes IN [--model FILE | --potential-command CMD] [options]\n"
             "\n"
             "Normal-mode analysis of every record of IN: the Hessian by central finite\n"
             "differences of the potential's gradients, harmonic frequencies (cm^-1,\n"
@@ -45,7 +46,8 @@ static void usage(FILE *f)
             "Structures should be minima of the same potential; use --relax otherwise.\n"
             "\n"
             "  IN                       .xyz (multi-frame) or .sdf/.sd/.mol with 3D coordinates; '-' stdin\n"
-            "  --model FILE             learned potential (ensemble mean)\n"
+            "  --model FILE             learned potential (ensemble mean); without it and without\n"
+            "                           --potential-command, potential/models/default.model is used\n"
             "  --potential-command CMD  an external program as the potential (protocol in\n"
             "                           potential/external.h); --timeout S per run (default %g)\n"
             "  --relax                  minimise each structure first (tight convergence)\n"
@@ -204,8 +206,8 @@ static int parse(int argc, char **argv, modes_options *o)
     if (argc - optind > 1)
         return cli_usage(CMD, "one input file expected, got %d", argc - optind);
     o->input = argv[optind];
-    if (!o->model == !o->command)
-        return cli_usage(CMD, "give exactly one potential: --model FILE or --potential-command CMD");
+    if (o->model && o->command)
+        return cli_usage(CMD, "give one potential: --model FILE or --potential-command CMD, not both");
     if (o->animate && !o->animate_out)
         return cli_usage(CMD, "--animate needs --animate-out FILE");
     if (!o->animate && o->animate_out)
@@ -560,6 +562,14 @@ int cmd_modes(int argc, char **argv)
                               "name",
                          o.write_out && strcmp(o.write_out, "-") == 0 ? "-o" : "--animate-out");
 
+    char mpath[PATH_MAX + 64], looked[4 * PATH_MAX];
+    if (!o.command) {
+        if (o.model)
+            snprintf(mpath, sizeof mpath, "%s", o.model);
+        else if (cli_find_model(mpath, sizeof mpath, looked, sizeof looked) != 0)
+            return cli_usage(CMD, "no potential given and no bundled model found (looked for %s): "
+                                  "pass --model FILE or --potential-command CMD", looked);
+    }
     nd_error err;
     nd_error_clear(&err);
     nd_model *model = NULL;
@@ -572,12 +582,12 @@ int cmd_modes(int argc, char **argv)
     int done = 0, failed = 0, last_fail = ND_OK;
     rc = ND_EXIT_OK;
 
-    if (o.model && nd_model_load(o.model, &model, &err) != ND_OK) {
+    if (!o.command && nd_model_load(mpath, &model, &err) != ND_OK) {
         rc = cli_error(CMD, &err);
         goto out;
     }
     if (model)
-        cli_model_notice(CMD, o.model, model);
+        cli_model_notice(CMD, mpath, model);
     if (nd_reader_open(&rd, o.input, o.format, &err) != ND_OK) {
         rc = cli_error(CMD, &err);
         goto out;

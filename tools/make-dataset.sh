@@ -57,14 +57,15 @@
 # Full run with the defaults (per small training molecule: 8 conformers, 8
 # torsion-varied, 40 thermal, one relaxation path giving ~7 frames + the
 # minimum + 2 near it, a scan on 6% of molecules: ~67 structures; per
-# held-out molecule 4 relaxations, ~96 structures):
+# held-out molecule 8 relaxations, ~130 structures):
 #   train 2,160 x 67 = ~145,000 structures x 0.2 s         ~ 8 core-hours
 #         relaxations 2,160 x 4 s                           ~ 2.5 core-hours
 #         scans 130 x 30 s                                  ~ 1 core-hour
-#   test    240 x 96 = ~23,000 structures + 960 relaxations ~ 2.5 core-hours
+#   test    240 x 130 = ~31,000 structures + 1,920 relaxations ~ 4 core-hours
 #   large    60 x ~100 = ~6,000 structures (0.4 s) + 240 relaxations of
 #            ~100 steps (0.4 s each)                        ~ 3.5 core-hours
-#   total ~175,000 structures, ~18 core-hours: ~9-10 hours on 2 cores
+#   basis    27 x ~100 = ~2,700 tiny structures                ~ 0.1 core-hour
+#   total ~185,000 structures, ~20 core-hours: ~10-11 hours on 2 cores
 #   (estimated from the measured rates above; the run appends its own
 #   measured times to WORK/logs/timing.txt and the summary prints them).
 # Pilot (--pilot: 400 + 40 molecules, ~12 structures each, then one
@@ -105,8 +106,11 @@ interruption and it continues where it stopped.
   --thermal-conformer N  displacements per conformer (default 3)
   --thermal-torsion N  displacements per torsion-varied shape (default 2)
   --relax N            conformers relaxed per training molecule (default 1)
-  --relax-test N       conformers relaxed per molecule of the test and large
-                       sets (default 4)
+  --relax-test N       conformers relaxed per held-out molecule (default 8:
+                       their distinct minima give the relative conformer
+                       energies and rank correlations of the evaluation)
+  --relax-large N      conformers relaxed per molecule of the large and
+                       basis sets (default 4)
   --every K            keep every K-th frame of a relaxation path (default 5)
   --thermal-minimum N  small displacements about each minimum (default 2)
   --scan-fraction F    fraction of molecules with a torsion scan (default 0.06)
@@ -153,7 +157,7 @@ SEED=${ND_DATASET_SEED:-1}
 THREADS=${ND_DATASET_THREADS:-}
 SETS="" STAGES="conformers,torsions,thermal,relax,scans,summary"
 NTRAIN="" NTEST="" NLARGE=""
-CONF="" TORS="" TH_CONF="" TH_TORS="" RELAX="" RELAX_TEST="" EVERY=5 TH_MIN="" SCANFRAC="" AUDIT=3
+CONF="" TORS="" TH_CONF="" TH_TORS="" RELAX="" RELAX_TEST="" RELAX_LARGE="" EVERY=5 TH_MIN="" SCANFRAC="" AUDIT=3
 AUDIT_STAGES=conformers,torsions,thermal,relax SCANSTEP=30 SMALL=$ROOT/tools/molecules/small.smi LARGE=$ROOT/tools/molecules/large.smi TESTFRAC=0.1
 BASIS=$ROOT/tools/molecules/basis.smi
 PILOT=0 STORE=""
@@ -180,6 +184,7 @@ while [ $# -gt 0 ]; do
     --every) EVERY=$2 ;;
     --thermal-minimum) TH_MIN=$2 ;;
     --relax-test) RELAX_TEST=$2 ;;
+    --relax-large) RELAX_LARGE=$2 ;;
     --scan-fraction) SCANFRAC=$2 ;;
     --audit) AUDIT=$2 ;;
     --scan-step) SCANSTEP=$2 ;;
@@ -196,13 +201,13 @@ done
 if [ $PILOT = 1 ]; then
   : "${WORK:=$ROOT/data/pilot}" "${THREADS:=1}" "${SETS:=train,test}"
   : "${NTRAIN:=400}" "${NTEST:=40}" "${NLARGE:=0}"
-  : "${CONF:=4}" "${TORS:=2}" "${TH_CONF:=1}" "${TH_TORS:=1}" "${RELAX:=1}" "${RELAX_TEST:=4}" "${TH_MIN:=1}" "${SCANFRAC:=0}"
+  : "${CONF:=4}" "${TORS:=2}" "${TH_CONF:=1}" "${TH_TORS:=1}" "${RELAX:=1}" "${RELAX_TEST:=4}" "${RELAX_LARGE:=4}" "${TH_MIN:=1}" "${SCANFRAC:=0}"
   AUDIT=2
 else
   [ -n "$WORK" ] || : "${STORE:=$ROOT/labels}"
   : "${WORK:=$ROOT/data/dataset}" "${THREADS:=2}" "${SETS:=train,test,large,basis}"
   : "${NTRAIN:=0}" "${NTEST:=0}" "${NLARGE:=0}"
-  : "${CONF:=8}" "${TORS:=8}" "${TH_CONF:=3}" "${TH_TORS:=2}" "${RELAX:=1}" "${RELAX_TEST:=4}" "${TH_MIN:=2}" "${SCANFRAC:=0.06}"
+  : "${CONF:=8}" "${TORS:=8}" "${TH_CONF:=3}" "${TH_TORS:=2}" "${RELAX:=1}" "${RELAX_TEST:=8}" "${RELAX_LARGE:=4}" "${TH_MIN:=2}" "${SCANFRAC:=0.06}"
 fi
 NADIR=${NADIR:-$ROOT/build/nadir}
 # A private copy of the program: others may rebuild build/ during a long run.
@@ -325,7 +330,7 @@ CHUNK=10
 if has "$STAGES" relax; then
   for s in test large basis train; do   # the test minima first: the evaluation needs them
     has "$SETS" $s || continue
-    RELAX_S=$RELAX; [ $s = train ] || RELAX_S=$RELAX_TEST
+    case $s in train) RELAX_S=$RELAX ;; test) RELAX_S=$RELAX_TEST ;; *) RELAX_S=$RELAX_LARGE ;; esac
     [ "$RELAX_S" -gt 0 ] || continue
     case $s in train) nm=$NTRAIN ;; test) nm=$NTEST ;; large) nm=$NLARGE ;; basis) nm=0 ;; esac
     G=$WORK/gen/$s.n$nm

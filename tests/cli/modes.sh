@@ -197,8 +197,10 @@ else
 fi
 
 # Errors.
-check_fails "no potential" 2 "give exactly one potential" "$NADIR" modes "$T/hcl.xyz"
-check_fails "two potentials" 2 "give exactly one potential" "$NADIR" modes "$T/hcl.xyz" --model a --potential-command b
+# Without a potential the bundled model is used; without one bundled, a usage error.
+mkdir -p "$T/alone/bin" && cp "$NADIR" "$T/alone/bin/nadir"
+check_fails "no potential and no bundled model" 2 "pass --model FILE" sh -c 'cd "$1" && ./bin/nadir modes "$2"' sh "$T/alone" "$T/hcl.xyz"
+check_fails "two potentials" 2 "not both" "$NADIR" modes "$T/hcl.xyz" --model a --potential-command b
 check_fails "animate without output" 2 "--animate needs --animate-out" "$NADIR" modes "$T/hcl.xyz" --potential-command "$POTCMD" --animate all
 check_fails "bad temperature" 2 "--temperature needs a positive number" "$NADIR" modes "$T/hcl.xyz" --potential-command "$POTCMD" --temperature -3
 check_fails "bad symmetry" 2 "--symmetry needs" "$NADIR" modes "$T/hcl.xyz" --potential-command "$POTCMD" --symmetry 0
