@@ -15,8 +15,9 @@
 static const char *CMD = "train";
 
 typedef struct {
-    const char *data, *output, *state;
+    const char *data, *output, *state, *start;
     int threads, resume, skip_bad, cache, quiet;
+    int shape_given; /* --elements, --layers or --members was given */
     nd_train_config cfg;
 } train_options;
 
@@ -66,6 +67,11 @@ static void usage(FILE *f)
             "  --seed S                 seed of the split, weights and orders (default %llu)\n"
             "  --threads N              threads (default: the number of cores); the result\n"
             "                           does not depend on it\n"
+            "  --start-from MODEL       warm start: begin from MODEL's weights, element\n"
+            "                           offsets and feature scaling instead of random\n"
+            "                           weights (its elements, layers, members and\n"
+            "                           descriptor are kept), e.g. to refine a model on\n"
+            "                           more data at a fraction of the cost\n"
             "  --state FILE             the checkpoint (default MODEL.state)\n"
             "  --resume                 continue from the checkpoint; the dataset and the\n"
             "                           options must be the same (--epochs may grow)\n"
@@ -80,6 +86,7 @@ static void usage(FILE *f)
             "  nadir train labels.jsonl -o mine.model --elements H,C,N,O --layers 64,32 \\\n"
             "        --members 2 --epochs 50 --threads 2\n"
             "  nadir train labels.jsonl -o mine.model --resume     (after an interruption)\n"
+            "  nadir train more.jsonl -o refined.model --start-from mine.model --epochs 30\n"
             "\n"
             "exit: 0 model written, 3 unreadable or invalid dataset or checkpoint, 4 the\n"
             "training failed (non-finite values), 2 usage\n",
@@ -138,7 +145,7 @@ static int parse_layers(const char *s, nd_train_config *c)
 static int parse(int argc, char **argv, train_options *o)
 {
     enum { O_ELEM = 256, O_LAYERS, O_MEMBERS, O_EPOCHS, O_BATCH, O_FW, O_VF, O_LR, O_LRF, O_PAT,
-           O_RPAT, O_WD, O_SEED, O_THREADS, O_STATE, O_RESUME, O_SKIP, O_CACHE, O_QUIET };
+           O_RPAT, O_WD, O_SEED, O_THREADS, O_STATE, O_RESUME, O_SKIP, O_CACHE, O_QUIET, O_START };
     static const struct option longopts[] = {{"output", required_argument, NULL, 'o'},
                                               {"elements", required_argument, NULL, O_ELEM},
                                               {"layers", required_argument, NULL, O_LAYERS},
@@ -155,6 +162,7 @@ static int parse(int argc, char **argv, train_options *o)
                                               {"seed", required_argument, NULL, O_SEED},
                                               {"threads", required_argument, NULL, O_THREADS},
                                               {"state", required_argument, NULL, O_STATE},
+                                              {"start-from", required_argument, NULL, O_START},
                                               {"resume", no_argument, NULL, O_RESUME},
                                               {"skip-bad-lines", no_argument, NULL, O_SKIP},
                                               {"cache", no_argument, NULL, O_CACHE},
@@ -174,10 +182,12 @@ static int parse(int argc, char **argv, train_options *o)
         case O_ELEM:
             if ((iv = parse_elements(optarg, &o->cfg)))
                 return iv;
+            o->shape_given = 1;
             break;
         case O_LAYERS:
             if ((iv = parse_layers(optarg, &o->cfg)))
                 return iv;
+            o->shape_given = 1;
             break;
         case O_MEMBERS:
         case O_EPOCHS:
@@ -193,8 +203,10 @@ static int parse(int argc, char **argv, train_options *o)
             if (cli_parse_int(optarg, &iv) < 0 || iv < lo || iv > hi)
                 return cli_usage(CMD, "%s takes a whole number from %d to %d, not '%s'",
                                  names[which], lo, hi, optarg);
-            if (which == 0)
+            if (which == 0) {
                 o->cfg.members = iv;
+                o->shape_given = 1;
+            }
             else if (which == 1)
                 o->cfg.epochs = iv;
             else if (which == 2)
@@ -242,6 +254,7 @@ static int parse(int argc, char **argv, train_options *o)
             break;
         }
         case O_STATE: o->state = optarg; break;
+        case O_START: o->start = optarg; break;
         case O_RESUME: o->resume = 1; break;
         case O_SKIP: o->skip_bad = 1; break;
         case O_CACHE: o->cache = 1; break;
@@ -254,6 +267,9 @@ static int parse(int argc, char **argv, train_options *o)
     if (optind != argc - 1)
         return cli_usage(CMD, optind >= argc ? "no dataset given" : "one dataset only");
     o->data = argv[optind];
+    if (o->start && o->shape_given)
+        return cli_usage(CMD, "--start-from keeps the start model's elements, layers and members; "
+                              "leave out --elements, --layers and --members");
     if (o->cfg.min_learning_rate > o->cfg.learning_rate)
         return cli_usage(CMD, "--learning-rate-floor %g is above --learning-rate %g",
                          o->cfg.min_learning_rate, o->cfg.learning_rate);
@@ -359,8 +375,21 @@ int cmd_train(int argc, char **argv)
     if (rep.bad_lines)
         fprintf(stderr, "nadir train: skipped %ld bad lines; the first: %s\n", rep.bad_lines,
                 rep.first_bad);
+    nd_model *from = NULL;
+    if (o.start) {
+        if ((s = nd_model_load(o.start, &from, &err))) {
+            nd_dataset_free(d);
+            return cli_error(CMD, &err);
+        }
+        o.cfg.start = from;
+        o.cfg.start_name = o.start;
+        o.cfg.members = nd_model_members(from);
+    }
     nd_train *t = NULL;
-    if ((s = nd_train_new(&t, d, o.data, &o.cfg, &err))) {
+    s = nd_train_new(&t, d, o.data, &o.cfg, &err);
+    nd_model_free(from);
+    o.cfg.start = NULL;
+    if (s) {
         nd_dataset_free(d);
         return cli_error(CMD, &err);
     }

@@ -572,6 +572,7 @@ typedef struct member {
 struct nd_train {
     const nd_dataset *d;
     char *name;
+    char *start_name;  /* a warm start's model file (cfg.start is not kept), or NULL */
     nd_train_config cfg;
     nd_model *model;
     int K;
@@ -640,6 +641,7 @@ void nd_train_free(nd_train *t)
         return;
     nd_model_free(t->model);
     free(t->name);
+    free(t->start_name);
     free(t->train_idx);
     free(t->val_idx);
     free(t->val_off);
@@ -810,7 +812,9 @@ static uint64_t fingerprint(const nd_train *t)
         nd_dataset_get(t->d, t->val_idx[s], &e);
         h = nd_model_fnv1a64(h, &e.id, sizeof e.id);
     }
-    h = nd_model_fnv1a64(h, m->mu, (size_t)(2 * m->nel * m->D + m->nel) * sizeof(double));
+    /* scaling, offsets and starting weights (a warm start's, or the seeded
+     * random ones) */
+    h = nd_model_fnv1a64(h, m->params, m->nparams * sizeof(double));
     return h;
 }
 
@@ -1020,6 +1024,23 @@ static int validate_member(nd_train *t, int k, nd_train_errors *v, nd_error *err
     return ND_OK;
 }
 
+/* A warm start's shape: the start model's elements, descriptor, layers,
+ * members and charge rule, into the settings (so the provenance and the
+ * checkpoint fingerprint describe what is trained) and the model spec. */
+static void take_start_shape(nd_train_config *c, nd_model_spec *spec)
+{
+    const nd_model *st = c->start;
+    c->nelements = spec->nelements = st->nel;
+    for (int e = 0; e < st->nel; e++)
+        c->z[e] = spec->z[e] = st->z[e];
+    c->descriptor = st->desc;
+    c->nhidden = st->nhidden;
+    for (int l = 0; l < st->nhidden; l++)
+        c->hidden[l] = st->width[l + 1];
+    c->members = st->nmembers;
+    c->neutral_only = st->neutral_only;
+}
+
 int nd_train_new(nd_train **out, const nd_dataset *data, const char *data_name,
                  const nd_train_config *cfg, nd_error *err)
 {
@@ -1043,6 +1064,8 @@ int nd_train_new(nd_train **out, const nd_dataset *data, const char *data_name,
     nd_model_spec_defaults(&spec);
     spec.nelements = cfg->nelements;
     memcpy(spec.z, cfg->z, sizeof spec.z);
+    if (cfg->start)
+        take_start_shape(&t->cfg, &spec);
     if ((s = check_data(t, spec.z, &spec.nelements, err)))
         goto fail;
     t->cfg.nelements = spec.nelements;
@@ -1051,16 +1074,30 @@ int nd_train_new(nd_train **out, const nd_dataset *data, const char *data_name,
         s = nd_fail(err, ND_EINPUT, "%s: the dataset has no structures", t->name);
         goto fail;
     }
-    spec.descriptor = cfg->descriptor;
-    spec.nhidden = cfg->nhidden;
-    memcpy(spec.hidden, cfg->hidden, sizeof spec.hidden);
-    spec.members = cfg->members;
-    spec.neutral_only = cfg->neutral_only;
-    if ((s = nd_model_new(&t->model, &spec, cfg->seed, err)))
-        goto fail;
-    if ((s = split(t, err)) || (s = fit_offsets(t, err)) || (s = fit_scaling(t, err)))
-        goto fail;
-    t->K = cfg->members;
+    if (cfg->start) {
+        /* the start model's offsets and scaling stay: its weights were
+         * learned with them */
+        if ((s = nd_model_copy(&t->model, cfg->start, err)) || (s = split(t, err)))
+            goto fail;
+        t->start_name = strdup(cfg->start_name ? cfg->start_name : "a model");
+        t->cfg.start = NULL;
+        t->cfg.start_name = NULL;
+        if (!t->start_name) {
+            s = nd_fail(err, ND_ENOMEM, "train: out of memory");
+            goto fail;
+        }
+    } else {
+        spec.descriptor = cfg->descriptor;
+        spec.nhidden = cfg->nhidden;
+        memcpy(spec.hidden, cfg->hidden, sizeof spec.hidden);
+        spec.members = cfg->members;
+        spec.neutral_only = cfg->neutral_only;
+        if ((s = nd_model_new(&t->model, &spec, cfg->seed, err)))
+            goto fail;
+        if ((s = split(t, err)) || (s = fit_offsets(t, err)) || (s = fit_scaling(t, err)))
+            goto fail;
+    }
+    t->K = t->cfg.members;
     t->P = nd_train_member_doubles(t->model);
     size_t KP = (size_t)t->K * t->P;
     t->theta = malloc(KP * sizeof(double));
@@ -1598,6 +1635,10 @@ int nd_train_model(const nd_train *t, nd_model **out, nd_error *err)
     cJSON_AddNumberToObject(tr, "learning_rate_floor", t->cfg.min_learning_rate);
     cJSON_AddNumberToObject(tr, "weight_decay", t->cfg.weight_decay);
     cJSON_AddNumberToObject(tr, "seed", (double)t->cfg.seed);
+    if (t->start_name) {
+        const char *sb = strrchr(t->start_name, '/');
+        cJSON_AddStringToObject(tr, "started_from", sb ? sb + 1 : t->start_name);
+    }
     /* validation errors of the saved (best) weights, ensemble mean */
     nd_train_errors v = t->last_valid;
     if (t->nval > 0) {

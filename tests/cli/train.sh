@@ -72,6 +72,37 @@ cmp -s "$T/a.model" "$T/c.model" && ok "1 and 2 threads give the same model" || 
 check_fails "resume with other options is refused" 3 "another dataset or other settings" \
   "$NADIR" train "$T/data.jsonl" -o "$T/b.model" $OPTS --epochs 4 --batch 5 --resume
 
+# Warm start. With a vanishing learning rate the weights cannot move, so the
+# refined model predicts what a.model predicts: its weights, offsets and
+# scaling were taken over (a random start would be hundreds of kcal/mol off).
+# With the normal rate, 3 more epochs from a.model end below a.model's
+# training-set force error.
+check "warm start, frozen rate" "$NADIR" train "$T/data.jsonl" -o "$T/w0.model" --start-from "$T/a.model" \
+  --batch 8 --validation-fraction 0.25 --seed 5 --threads 2 --epochs 1 --learning-rate 1e-12 --learning-rate-floor 1e-12
+check "warm start, 3 epochs" "$NADIR" train "$T/data.jsonl" -o "$T/w3.model" --start-from "$T/a.model" \
+  --batch 8 --validation-fraction 0.25 --seed 5 --threads 2 --epochs 3
+for m in a w0 w3; do "$NADIR" evaluate "$T/$m.model" "$T/data.jsonl" --json > "$T/$m.ev.json" 2>/dev/null; done
+if /usr/bin/python3 - "$T" <<'PY'
+import json, sys
+t = sys.argv[1]
+ev = {m: json.load(open("%s/%s.ev.json" % (t, m))) for m in ("a", "w0", "w3")}
+raw = open(t + "/w3.model", "rb").read().decode("latin-1")
+hdr, _ = json.JSONDecoder().raw_decode(raw[raw.index("\n") + 1:])
+assert hdr["provenance"]["training"]["started_from"] == "a.model", hdr["provenance"]["training"]
+assert ev["w0"]["members"] == 2
+assert abs(ev["w0"]["energy"]["mae"] - ev["a"]["energy"]["mae"]) < 1e-6, (ev["w0"]["energy"], ev["a"]["energy"])
+assert ev["w3"]["force"]["mae"] < ev["a"]["force"]["mae"], (ev["w3"]["force"]["mae"], ev["a"]["force"]["mae"])
+print("# force MAE: a %.3f, warm start +3 epochs %.3f" % (ev["a"]["force"]["mae"], ev["w3"]["force"]["mae"]))
+PY
+then ok "warm start keeps the start model's weights and refines them"; else not_ok "warm start keeps the start model's weights and refines them"; fi
+check_fails "warm start with --layers is refused" 2 "keeps the start model's" \
+  "$NADIR" train "$T/data.jsonl" --start-from "$T/a.model" --layers 4
+head -5 "$T/data.jsonl" > "$T/sulfur.jsonl"
+echo '{"key": "s", "elements": ["S", "H", "H"], "coordinates": [0,0,0, 0,1.3,0.9, 0,-1.3,0.9], "energy": -2}' >> "$T/sulfur.jsonl"
+check_fails "warm start from a model without an element of the data" 3 "sulfur.jsonl, line 6: atom 1 is S" \
+  "$NADIR" train "$T/sulfur.jsonl" -o "$T/x.model" --start-from "$T/a.model" --epochs 1
+check_fails "warm start from a missing model" 3 "nope.model" "$NADIR" train "$T/data.jsonl" --start-from "$T/nope.model"
+
 # Evaluate.
 check "evaluate" "$NADIR" evaluate "$T/a.model" "$T/data.jsonl"
 grep -q 'relative energy' "$TAP_TMP/out" && grep -q 'on H' "$TAP_TMP/out" && grep -q 'ensemble spread' "$TAP_TMP/out" \
