@@ -1,6 +1,7 @@
 #!/bin/sh
-# Runs the benchmarks built by `make bench` (bench/bench_*.c), one after the
-# other so they do not compete for the two cores. Each prints its own table
+# Runs the benchmarks built by `make bench` (bench/bench_*.c) and the scripted
+# ones (bench/bench_*.sh), one after the other so they do not compete for the
+# two cores. Each prints its own table
 # with ratios measured side by side in the same run.
 #   bench/run.sh BUILD [NAME]
 build="${1:-build}"; only="${2:-}"
@@ -12,6 +13,14 @@ for b in "$build"/bench/bench_*; do
   [ -n "$only" ] && [ "$name" != "$only" ] && continue
   echo "== $name"
   ND_BUILD="$build" ND_NADIR="$PWD/$build/nadir" "$b" || status=1
+  echo
+done
+for b in bench/bench_*.sh; do
+  [ -f "$b" ] || continue
+  name=$(basename "$b" .sh)
+  [ -n "$only" ] && [ "$name" != "$only" ] && continue
+  echo "== $name"
+  ND_BUILD="$build" ND_NADIR="$PWD/$build/nadir" bash "$b" || status=1
   echo
 done
 exit $status
