@@ -409,6 +409,12 @@ static int search_one(const conf_options *o, const nd_model *model, nd_molecule 
 {
     *out = NULL;
     double t0 = nd_progress_clock();
+    char close[96];
+    /* atoms on top of each other: bonds perceived or sampled from such a
+     * structure mean nothing, so say so instead of failing the search */
+    if (mol->dimension == 3 && cli_close_contact(mol, close, sizeof close))
+        return nd_fail(err, ND_EINPUT, "the 3D structure is not usable%s; fix the file or give "
+                       "SMILES", close);
     if (mol->dimension == 3 && !mol->has_bonds && mol->natoms > 1) {
         int s = nd_verify_perceive_bonds(mol, err);
         if (s)

@@ -84,8 +84,8 @@ static void usage(FILE *f)
             "  nadir modes water.xyz --model ligands.model --animate all --animate-out water-modes.xyz\n"
             "  nadir modes frames.xyz --potential-command 'tools/reference-gradient' --json\n"
             "\n"
-            "exit: 0 every record analysed, 5 some failed, 3 none could be read, 4 a\n"
-            "      computation failed, 2 usage\n",
+            "exit: 0 every record analysed, 5 some failed, 3 none could be read or a structure\n"
+            "      is unusable (atoms on top of each other), 4 a computation failed, 2 usage\n",
             ND_MODES_NOISE_FREQ, ND_MODES_NOISE_GRAD, DEFAULT_TIMEOUT, ND_REPAIR_ROUNDS,
             ND_HESSIAN_STEP_DEFAULT, ND_THERMO_T_DEFAULT, ND_SYMMETRY_TOL, ND_THERMO_QH_W0,
             ND_THERMO_QH_ALPHA, DEFAULT_FRAMES, DEFAULT_AMPLITUDE);
@@ -688,13 +688,16 @@ int cmd_modes(int argc, char **argv)
             goto out;
         }
         failed++;
+        char close[96] = "";
+        /* atoms on top of each other: the input is at fault, not the
+         * computation (exit 3, as in energy and optimize) */
+        if (!read_failed && (s == ND_ECOMPUTE || s == ND_EEXTERNAL) &&
+            cli_close_contact(&mol, close, sizeof close))
+            s = ND_EINPUT;
         last_fail = s;
         if (read_failed)
             fprintf(stderr, "nadir %s: %s\n", CMD, err.msg[0] ? err.msg : nd_status_name(s));
         else {
-            char close[96] = "";
-            if (s == ND_ECOMPUTE)
-                cli_close_contact(&mol, close, sizeof close);
             fprintf(stderr, "nadir %s: %s, record %d: %s%s\n", CMD, nd_reader_name(rd), record,
                     err.msg[0] ? err.msg : nd_status_name(s), close);
         }

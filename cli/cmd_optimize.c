@@ -85,7 +85,8 @@ static void usage(FILE *f)
             "      --report scan.json -o scan.sdf\n"
             "\n"
             "exit: 0 every record converged, 5 some did not or failed (each named on stderr),\n"
-            "      4 none converged, 3 no record could be read or the potential refused them,\n"
+            "      4 none converged, 3 no record could be read, the potential refused them, or\n"
+            "      a structure is unusable (atoms on top of each other),\n"
             "      2 usage\n",
             DEFAULT_TIMEOUT, SCAN_FORCE_CONSTANT);
 }
@@ -672,8 +673,11 @@ int cmd_optimize(int argc, char **argv)
                     fprintf(stderr, "nadir %s: %s\n", CMD, wk->err.msg);
                 else {
                     char close[96] = "";
-                    if (s == ND_ECOMPUTE)
-                        cli_close_contact(&wk->mol, close, sizeof close);
+                    /* atoms on top of each other: the input is at fault, not
+                     * the computation (exit 3, as in energy and modes) */
+                    if ((s == ND_ECOMPUTE || s == ND_EEXTERNAL) &&
+                        cli_close_contact(&wk->mol, close, sizeof close))
+                        s = ND_EINPUT;
                     fprintf(stderr, "nadir %s: %s, record %d: %s%s\n", CMD, nd_reader_name(r),
                             wk->record, wk->err.msg[0] ? wk->err.msg : nd_status_name(s), close);
                 }

@@ -89,4 +89,8 @@ PY
 check "3D SD input" "$NADIR" conformers "$T/w.sdf" "${POT[@]}" --max-tries 1 -o "$T/c.sdf"
 if grep -q "<batch_code>" "$T/c.sdf" && grep -q "QX-17" "$T/c.sdf" && grep -q "<energy_kcal_per_mol>" "$T/c.sdf"; then
   ok "input data items carried through"; else not_ok "input data items carried through"; fi
+# Atoms on top of each other are the input's fault: exit 3 naming them, as in energy.
+printf '3\nclash\nO 0 0 0\nH 0 0 0\nH 1 0 0\n' > "$TAP_TMP/clash.xyz"
+check_fails "coincident atoms: input error naming them" 3 "atoms 1 and 2 are only 0.000 A apart" \
+  "$NADIR" conformers "$TAP_TMP/clash.xyz" --potential-command "$PWD/tests/cli/morse_potential.py"
 finish

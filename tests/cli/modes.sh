@@ -225,4 +225,8 @@ $PY -c "import json,sys; d=json.load(open(sys.argv[1])); r=d['records'][0]; asse
 check_fails "failure names the file" 4 "hcl.xyz, record 1:" "$NADIR" modes "$T/hcl.xyz" --potential-command "/bin/false"
 check_fails "report path checked first" 3 "does not exist" "$NADIR" modes "$T/hcl.xyz" --potential-command "$POTCMD" --report "$T/nodir/r.json"
 check_fails "-o - refused (stdout has the table)" 2 "standard output carries the table" "$NADIR" modes "$T/hcl.xyz" --potential-command "$POTCMD" -o -
+# Atoms on top of each other are the input's fault: exit 3 naming them, as in energy.
+printf '3\nclash\nO 0 0 0\nH 0 0 0\nH 1 0 0\n' > "$TAP_TMP/clash.xyz"
+check_fails "coincident atoms: input error naming them" 3 "atoms 1 and 2 are only 0.000 A apart" \
+  "$NADIR" modes "$TAP_TMP/clash.xyz" --potential-command "$PWD/tests/cli/morse_potential.py"
 finish

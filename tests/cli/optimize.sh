@@ -120,8 +120,12 @@ check_fails "report in a missing directory: before the work" 3 "does not exist" 
 [ ! -s "$T/out" ] && ok "nothing relaxed before the report path failed" || not_ok "relaxed first" "$(cat "$T/out")"
 printf '3\nclash\nH 0 0 0\nH 0 0 0\nH 1 0 0\n' > "$T/clash.xyz"
 "$NADIR" energy --make-random-model "$T/r.model" --elements H 2>/dev/null
-check_fails "coincident atoms named" 4 "atoms 1 and 2 are only 0.000 A apart" "$NADIR" optimize "$T/clash.xyz" --model "$T/r.model"
+check_fails "coincident atoms named (learned model): input error" 3 "atoms 1 and 2 are only 0.000 A apart" "$NADIR" optimize "$T/clash.xyz" --model "$T/r.model"
 printf 'CCO ethanol\n' > "$T/s.smi"
 check_fails "SMILES input: build suggested" 3 "nadir build makes them from SMILES" "$NADIR" optimize "$T/s.smi" --potential-command "$POT"
 check_fails "-o - refused (stdout has the table)" 2 "standard output carries the table" "$NADIR" optimize "$T/p2.xyz" --potential-command "$POT" -o -
+# Atoms on top of each other are the input's fault: exit 3 naming them, as in energy.
+printf '3\nclash\nO 0 0 0\nH 0 0 0\nH 1 0 0\n' > "$TAP_TMP/clash.xyz"
+check_fails "coincident atoms named (external program): input error" 3 "atoms 1 and 2 are only 0.000 A apart" \
+  "$NADIR" optimize "$TAP_TMP/clash.xyz" --potential-command "$PWD/tests/cli/morse_potential.py"
 finish
