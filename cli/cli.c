@@ -170,3 +170,18 @@ int cli_find_model(char *out, size_t size, char *looked, size_t lsize)
     }
     return -1;
 }
+
+int cli_model_path(const char *command, const char *given, int external_ok, char *out,
+                   size_t size)
+{
+    char looked[4 * PATH_MAX];
+    if (given) {
+        snprintf(out, size, "%s", given);
+        return 0;
+    }
+    if (cli_find_model(out, size, looked, sizeof looked) == 0)
+        return 0;
+    return cli_usage(command, "no potential given and no bundled model found (looked for %s): "
+                              "pass --model FILE%s", looked,
+                     external_ok ? " or --potential-command CMD" : "");
+}

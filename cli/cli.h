@@ -54,6 +54,15 @@ int cli_parse_int(const char *s, int *out);
  * returns -1 with the places tried, comma-separated, in looked. */
 int cli_find_model(char *out, size_t size, char *looked, size_t lsize);
 
+/* The model file of a command: given (its --model) as it is, else the
+ * bundled model (cli_find_model). external_ok: the command also takes
+ * --potential-command, which the message then offers. Returns 0 with the
+ * path in out, or prints "nadir COMMAND: no potential given and no bundled
+ * model found (looked for ...): pass --model FILE [or --potential-command
+ * CMD]" and returns ND_EXIT_USAGE. */
+int cli_model_path(const char *command, const char *given, int external_ok, char *out,
+                   size_t size);
+
 /* Prints the model's provenance "status" (e.g. that it is a pilot model that
  * does not meet the accuracy goals) to stderr, when the file states one. */
 void cli_model_notice(const char *command, const char *path, const nd_model *model);

@@ -474,11 +474,10 @@ int cmd_conformers(int argc, char **argv)
         (rc = cli_check_output(CMD, "--report", o.report)) != 0)
         return rc;
 
-    char mpath[PATH_MAX + 64], looked[4 * PATH_MAX];
+    char mpath[PATH_MAX + 64];
     if (!o.model && !o.command) {
-        if (cli_find_model(mpath, sizeof mpath, looked, sizeof looked) != 0)
-            return cli_usage(CMD, "a potential is needed: pass --model FILE or --potential-command "
-                                  "CMD (no bundled model found; looked for %s)", looked);
+        if ((rc = cli_model_path(CMD, NULL, 1, mpath, sizeof mpath)) != 0)
+            return rc;
         o.model = mpath;
     }
 

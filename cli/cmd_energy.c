@@ -224,14 +224,9 @@ int cmd_energy(int argc, char **argv)
     if (o.make_model)
         return make_random_model(&o);
 
-    char mpath[PATH_MAX + 64], looked[4 * PATH_MAX];
-    if (o.model)
-        snprintf(mpath, sizeof mpath, "%s", o.model);
-    else if (cli_find_model(mpath, sizeof mpath, looked, sizeof looked) != 0)
-        return cli_usage(CMD,
-                         "no model given and no bundled model found (looked for %s): pass "
-                         "--model FILE",
-                         looked);
+    char mpath[PATH_MAX + 64];
+    if ((rc = cli_model_path(CMD, o.model, 0, mpath, sizeof mpath)) != 0)
+        return rc;
 
     nd_error err;
     nd_error_clear(&err);

@@ -562,14 +562,9 @@ int cmd_modes(int argc, char **argv)
                               "name",
                          o.write_out && strcmp(o.write_out, "-") == 0 ? "-o" : "--animate-out");
 
-    char mpath[PATH_MAX + 64], looked[4 * PATH_MAX];
-    if (!o.command) {
-        if (o.model)
-            snprintf(mpath, sizeof mpath, "%s", o.model);
-        else if (cli_find_model(mpath, sizeof mpath, looked, sizeof looked) != 0)
-            return cli_usage(CMD, "no potential given and no bundled model found (looked for %s): "
-                                  "pass --model FILE or --potential-command CMD", looked);
-    }
+    char mpath[PATH_MAX + 64];
+    if (!o.command && (rc = cli_model_path(CMD, o.model, 1, mpath, sizeof mpath)) != 0)
+        return rc;
     nd_error err;
     nd_error_clear(&err);
     nd_model *model = NULL;

@@ -558,14 +558,9 @@ int cmd_optimize(int argc, char **argv)
         return cli_usage(CMD, "%s -: standard output carries the table (or --json); give a file "
                               "name ending in .xyz or .sdf",
                          o.output && strcmp(o.output, "-") == 0 ? "-o" : "--trajectory");
-    char mpath[PATH_MAX + 64], looked[4 * PATH_MAX];
-    if (!o.command) {
-        if (o.model)
-            snprintf(mpath, sizeof mpath, "%s", o.model);
-        else if (cli_find_model(mpath, sizeof mpath, looked, sizeof looked) != 0)
-            return cli_usage(CMD, "no potential given and no bundled model found (looked for %s): "
-                                  "pass --model FILE or --potential-command CMD", looked);
-    }
+    char mpath[PATH_MAX + 64];
+    if (!o.command && (rc = cli_model_path(CMD, o.model, 1, mpath, sizeof mpath)) != 0)
+        return rc;
     nd_error err;
     nd_error_clear(&err);
     nd_model *model = NULL;

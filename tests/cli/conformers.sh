@@ -15,7 +15,7 @@ if grep -q "usage: nadir conformers" "$TAP_TMP/out" && grep -q "potential-comman
 # Without a bundled model next to the program or in the working directory:
 # a copy of the program in an empty directory.
 mkdir -p "$TAP_TMP/alone/bin" && cp "$NADIR" "$TAP_TMP/alone/bin/nadir"
-check_fails "no potential: says one is needed" 2 "a potential is needed" \
+check_fails "no potential: says one is needed" 2 "no potential given and no bundled model found" \
   sh -c 'cd "$1" && ./bin/nadir conformers CCCC' sh "$TAP_TMP/alone"
 check_fails "bad window" 2 "--window needs a number" "$NADIR" conformers CCCC --window abc --potential-command true
 check_fails "model and command exclude each other" 2 "exclude each other" "$NADIR" conformers CCCC --model m --potential-command c
