@@ -136,6 +136,29 @@ void cli_model_notice(const char *command, const char *path, const nd_model *mod
     cJSON_Delete(prov);
 }
 
+int cli_size_note(const char *command, const nd_model *model, const nd_molecule *mol,
+                  const char *where)
+{
+    if (!model || !mol)
+        return 0;
+    cJSON *prov = cJSON_Parse(nd_model_provenance(model));
+    const cJSON *sz = cJSON_GetObjectItemCaseSensitive(prov, "training_sizes");
+    const cJSON *hm = cJSON_GetObjectItemCaseSensitive(sz, "heavy_atoms_max");
+    int max = cJSON_IsNumber(hm) ? (int)hm->valuedouble : 0;
+    cJSON_Delete(prov);
+    int heavy = 0;
+    for (int i = 0; i < mol->natoms; i++)
+        heavy += mol->z[i] > 1;
+    if (max <= 0 || heavy <= max)
+        return 0;
+    fprintf(stderr,
+            "nadir %s: note: %s has %d heavy atoms; the model was trained on molecules of at "
+            "most %d, so this is outside its size domain: energies may be off by more than the "
+            "ensemble spread suggests\n",
+            command, where, heavy, max);
+    return 1;
+}
+
 /* Finds the model file when --model is not given: next to the program
  * (BIN/../share/nadir/models/default.model), then in the source tree
  * (potential/models/default.model from the current directory and from
@@ -159,7 +182,13 @@ int cli_find_model(char *out, size_t size, char *looked, size_t lsize)
     for (int i = 0; i < nc; i++) {
         size_t len = strlen(cand[i]);
         if (access(cand[i], R_OK) == 0 && len < size) {
-            memcpy(out, cand[i], len + 1);
+            /* the plain path (no "bin/../") in messages and reports */
+            char *plain = realpath(cand[i], NULL);
+            if (plain && strlen(plain) < size)
+                memcpy(out, plain, strlen(plain) + 1);
+            else
+                memcpy(out, cand[i], len + 1);
+            free(plain);
             return 0;
         }
         const char *parts[2] = {i ? ", " : "", cand[i]};

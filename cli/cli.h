@@ -67,4 +67,12 @@ int cli_model_path(const char *command, const char *given, int external_ok, char
  * does not meet the accuracy goals) to stderr, when the file states one. */
 void cli_model_notice(const char *command, const char *path, const nd_model *model);
 
+/* Size domain: when the model's provenance names the largest molecule it
+ * was trained on ("training_sizes": {"heavy_atoms_max": N}) and mol has
+ * more heavy atoms, prints "nadir COMMAND: note: WHERE has H heavy atoms;
+ * the model was trained on molecules of at most N ..." and returns 1;
+ * otherwise (also when the model does not say) returns 0 silently. */
+int cli_size_note(const char *command, const nd_model *model, const nd_molecule *mol,
+                  const char *where);
+
 #endif

@@ -592,9 +592,13 @@ int cmd_conformers(int argc, char **argv)
             continue;
         }
         done++;
+        char where[300];
+        snprintf(where, sizeof where, "%s, record %d", nd_reader_name(r), rec);
+        int outside = cli_size_note(CMD, model, &mol, where);
         print_table(rec, &mol, srch, o.search.free_energy, o.search.temperature, secs);
         if (jm) {
             cJSON_AddStringToObject(jm, "status", "ok");
+            cJSON_AddBoolToObject(jm, "outside_training_sizes", outside);
             cJSON_AddItemToObject(jm, "search", stats_json(nd_search_stats(srch), secs));
             cJSON *jc = cJSON_AddArrayToObject(jm, "conformers");
             for (int k = 0; k < nd_search_count(srch); k++)

@@ -322,12 +322,16 @@ int cmd_energy(int argc, char **argv)
             rel_spread = nd_ensemble_difference_spread(K, res.member_e, first_me, &rel);
         }
         const char *title = mol.title ? mol.title : "";
+        char where[300];
+        snprintf(where, sizeof where, "%s, record %d", nd_reader_name(r), rec);
+        int outside = cli_size_note(CMD, model, &mol, where);
         if (o.json) {
             cJSON *j = cJSON_CreateObject();
             cJSON_AddItemToArray(records, j);
             cJSON_AddNumberToObject(j, "record", rec);
             cJSON_AddStringToObject(j, "title", title);
             cJSON_AddNumberToObject(j, "atoms", mol.natoms);
+            cJSON_AddBoolToObject(j, "outside_training_sizes", outside);
             cJSON_AddNumberToObject(j, "energy", res.energy);
             if (K > 1) /* one member has no spread: null, not a zero uncertainty */
                 cJSON_AddNumberToObject(j, "energy_spread", res.spread);

@@ -651,12 +651,17 @@ int cmd_modes(int argc, char **argv)
                         "%g: not a stationary point of this potential, so its frequencies and "
                         "thermochemistry mean little; use --relax\n",
                         CMD, nd_reader_name(rd), record, r.check.grad_rms, NOT_STATIONARY_RMS);
+            char where[300];
+            snprintf(where, sizeof where, "%s, record %d", nd_reader_name(rd), record);
+            int outside = cli_size_note(CMD, model, &mol, where);
             if (!o.json)
                 print_record(&o, record, &mol, &r);
             if (records) {
                 cJSON *j = record_json(&o, record, &mol, &r);
-                if (j)
+                if (j) {
+                    cJSON_AddBoolToObject(j, "outside_training_sizes", outside);
                     cJSON_AddItemToArray(records, j);
+                }
             }
             if (anim)
                 s = animate(&o, anim, record, &mol, &r, &err);

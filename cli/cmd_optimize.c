@@ -702,11 +702,15 @@ int cmd_optimize(int argc, char **argv)
                 steps += wk->points[k].r.steps;
                 calls += wk->points[k].r.force_calls;
             }
+            char where[300];
+            snprintf(where, sizeof where, "%s, record %d", nd_reader_name(r), wk->record);
+            int outside = cli_size_note(CMD, model, &wk->mol, where);
             cJSON *j = cJSON_CreateObject();
             cJSON_AddItemToArray(records, j);
             cJSON_AddNumberToObject(j, "record", wk->record);
             cJSON_AddStringToObject(j, "title", title);
             cJSON_AddNumberToObject(j, "atoms", n);
+            cJSON_AddBoolToObject(j, "outside_training_sizes", outside);
             if (wk->nfrozen)
                 cJSON_AddNumberToObject(j, "frozen_atoms", wk->nfrozen);
             if (!scan) {

@@ -1616,6 +1616,21 @@ int nd_train_model(const nd_train *t, nd_model **out, nd_error *err)
     cJSON_AddStringToObject(un, "energy", "kcal/mol");
     cJSON_AddStringToObject(un, "length", "angstrom");
     cJSON_AddStringToObject(un, "force", "kcal/mol/angstrom");
+    /* the sizes trained on, so that users of the model can be told when a
+     * molecule is bigger than any it learned from */
+    int max_atoms = 0, max_heavy = 0;
+    for (long i = 0; i < t->ntrain; i++) {
+        nd_dataset_entry e;
+        nd_dataset_get(t->d, t->train_idx[i], &e);
+        int heavy = 0;
+        for (int a = 0; a < e.natoms; a++)
+            heavy += e.z[a] > 1;
+        max_atoms = e.natoms > max_atoms ? e.natoms : max_atoms;
+        max_heavy = heavy > max_heavy ? heavy : max_heavy;
+    }
+    cJSON *dom = cJSON_AddObjectToObject(o, "training_sizes");
+    cJSON_AddNumberToObject(dom, "atoms_max", max_atoms);
+    cJSON_AddNumberToObject(dom, "heavy_atoms_max", max_heavy);
     sp = cJSON_AddObjectToObject(o, "split");
     cJSON_AddStringToObject(sp, "by", "molecule key");
     cJSON_AddNumberToObject(sp, "seed", (double)t->cfg.seed);

@@ -167,7 +167,8 @@ int nd_train_save_state(const nd_train *t, const char *path, nd_error *err);
 int nd_train_load_state(nd_train *t, const char *path, nd_error *err);
 
 /* The trained model: each member's best weights so far (it may be called
- * at any time), with the provenance: dataset name and size, units, split,
+ * at any time), with the provenance: dataset name and size, the largest
+ * training structure ("training_sizes": atoms_max, heavy_atoms_max), units, split,
  * epochs, settings, the best epoch of each member and the validation
  * errors of the ensemble mean with these weights. *out is freed with
  * nd_model_free. */

@@ -57,8 +57,20 @@ assert p["split"]["validation_molecules"] == 2 and p["split"]["training_molecule
 assert p["training"]["epochs"] == 3, p
 assert p["units"]["energy"] == "kcal/mol", p
 assert p["validation"]["force_mae"] > 0, p
+assert p["training_sizes"]["heavy_atoms_max"] <= 3 and p["training_sizes"]["atoms_max"] <= 7, p["training_sizes"]
 PY
-then ok "provenance: dataset, size, split, epochs, units, validation errors"; else not_ok "provenance: dataset, size, split, epochs, units, validation errors"; fi
+then ok "provenance: dataset, size, largest molecule, split, epochs, units, validation errors"; else
+  not_ok "provenance: dataset, size, largest molecule, split, epochs, units, validation errors"; fi
+# A molecule bigger than any trained on gets a note and a flag; a small one neither.
+"$NADIR" build 'CCCCCO pentanol' -o "$T/big.xyz" 2>/dev/null
+"$NADIR" build 'CO methanol' -o "$T/small.xyz" 2>/dev/null
+check "energy of a molecule bigger than the training ones" "$NADIR" energy "$T/big.xyz" --model "$T/a.model" --json
+grep -q "has 6 heavy atoms; the model was trained on molecules of at most" "$TAP_TMP/err" \
+  && grep -q '"outside_training_sizes":[[:space:]]*true' "$TAP_TMP/out" \
+  && ok "outside the size domain: noted and flagged" || not_ok "outside the size domain: noted and flagged" "$(head -c 300 "$TAP_TMP/err")"
+check "energy of a small molecule" "$NADIR" energy "$T/small.xyz" --model "$T/a.model" --json
+! grep -q "size domain" "$TAP_TMP/err" && grep -q '"outside_training_sizes":[[:space:]]*false' "$TAP_TMP/out" \
+  && ok "inside the size domain: no note" || not_ok "inside the size domain: no note" "$(head -c 300 "$TAP_TMP/err")"
 
 # Resume: 2 epochs, then --resume to 3, gives the same bytes as 3 in one go.
 check "2 epochs" "$NADIR" train "$T/data.jsonl" -o "$T/b.model" $OPTS --epochs 2
