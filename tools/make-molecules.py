@@ -2,13 +2,19 @@
 """Generates the molecule lists for nadir's training and test sets by joining
 fragments: diverse neutral closed-shell molecules of H, C, N, O, F, S and Cl.
 
-  tools/make-molecules.py [--seed S] [--small N] [--large N] [--out DIR]
+  tools/make-molecules.py [--seed S] [--small N] [--large N] [--explore N] [--out DIR]
 
-writes DIR/small.smi (N molecules, 3 to 14 heavy atoms; default 2400) and
+writes DIR/small.smi (N molecules, 3 to 14 heavy atoms; default 2400),
 DIR/large.smi (N molecules, 20 to 40 heavy atoms, at least 6 rotatable bonds;
-default 60), one "SMILES name" per line, and prints a summary of sizes and
-functional groups to stderr. DIR defaults to tools/molecules. Same seed, same
-files.
+default 60) and DIR/explore.smi (N molecules, default 400, alternately of
+6-14 and of 15-24 heavy atoms: the molecules of the active-learning rounds of
+tools/active-learning.sh, none of them in small.smi, large.smi or
+tools/molecules/basis.smi, so they probe molecules the model was neither
+trained nor tested on, half of them larger than any training molecule),
+one "SMILES name" per line, and prints a summary of sizes and functional
+groups to stderr. DIR defaults to tools/molecules. Same seed, same files;
+explore.smi comes from its own random stream (seeded by S and "explore"), so
+adding it left small.smi and large.smi unchanged.
 
 How it works (our own scheme):
 - Fragments are written in a small Kekule SMILES subset (organic atoms,
@@ -227,6 +233,40 @@ def ring_atoms(m):
                 changed = True
     del deg
     return alive
+
+
+def graph_from_smiles(smi):
+    """The graph of a SMILES of our subset with the ring kinds perceived, so
+    that wl_hash of it equals wl_hash of the molecule the generator built
+    (whatever the Kekule form written). Joins never make rings, so every ring
+    is one fragment's: the atoms left after cutting the acyclic bonds fall
+    into single rings, and a ring with two or more double bonds inside it is
+    aromatic (every aromatic fragment has two or three; cyclohexene one, the
+    lactam none)."""
+    m = parse_smiles(smi)
+    core = ring_atoms(m)  # rings and the chains between them
+    ring_adj = {a: [b for b in m.adj[a] if b in core and same_ring_bond(m, a, b)] for a in core}
+    cyc = {a for a in core if ring_adj[a]}
+    seen = set()
+    for a in sorted(cyc):
+        if a in seen:
+            continue
+        ring, todo = {a}, [a]
+        while todo:
+            for b in ring_adj[todo.pop()]:
+                if b not in ring:
+                    ring.add(b)
+                    todo.append(b)
+        seen |= ring
+        doubles = sum(1 for x in ring for y, o in m.adj[x].items() if y in ring and o == 2) // 2
+        kind = "arom" if doubles >= 2 else "ring"
+        for x in ring:
+            m.ring[x] = kind
+            if kind == "arom":
+                for y in m.adj[x]:
+                    if y in ring:
+                        m.arom_bond.add(frozenset((x, y)))
+    return m
 
 
 def write_smiles(m):
@@ -542,6 +582,7 @@ def main():
     ap.add_argument("--seed", type=int, default=20261201)
     ap.add_argument("--small", type=int, default=2400)
     ap.add_argument("--large", type=int, default=60)
+    ap.add_argument("--explore", type=int, default=400)
     ap.add_argument("--out", default=os.path.join(os.path.dirname(os.path.abspath(__file__)), "molecules"))
     a = ap.parse_args()
     rng = random.Random(a.seed)
@@ -564,8 +605,27 @@ def main():
     small_hash = {wl_hash(m) for _, _, m in small}
     if any(wl_hash(m) in small_hash for _, _, m in large):
         raise SystemExit("internal error: a large molecule is also in the small set")
+    # The exploration list: its own stream, so small and large do not change
+    # with it; none of its molecules in small, large or the basis list.
+    taken = small_hash | {wl_hash(m) for _, _, m in large}
+    # (basis.smi is hand-written and lives beside this script, whatever --out)
+    basis = os.path.join(os.path.dirname(os.path.abspath(__file__)), "molecules", "basis.smi")
+    taken |= {wl_hash(graph_from_smiles(l.split()[0])) for l in open(basis) if l.strip()}
+    # Half of 6-14 heavy atoms (the training sizes), half of 15-24 (beyond
+    # them), interleaved so that any first N of the list holds both.
+    rng_x = random.Random("%d:explore" % a.seed)
+
+    def fresh(m):
+        return wl_hash(m) not in taken
+
+    inside = generate(rng_x, (a.explore + 1) // 2, 6, 14, frags, extra=fresh, prefix="x") if a.explore > 0 else []
+    beyond = generate(rng_x, a.explore // 2, 15, 24, frags, extra=fresh, prefix="x") if a.explore > 1 else []
+    mixed = [t for pair in zip(inside, beyond) for t in pair] + inside[len(beyond):]
+    explore = [("explore-%05d" % (k + 1), smi, m) for k, (_, smi, m) in enumerate(mixed)]
     os.makedirs(a.out, exist_ok=True)
-    for fname, mols in (("small.smi", small), ("large.smi", large)):
+    for fname, mols in (("small.smi", small), ("large.smi", large), ("explore.smi", explore)):
+        if not mols and fname == "explore.smi":
+            continue
         tmp = os.path.join(a.out, fname + ".tmp")
         with open(tmp, "w") as f:
             for name, smi, _ in mols:
@@ -575,6 +635,8 @@ def main():
     summary("large.smi", large)
     rb = [rotatable_bonds(m) for _, _, m in large]
     sys.stderr.write("  large: rotatable bonds %d..%d\n" % (min(rb), max(rb)))
+    if explore:
+        summary("explore.smi", explore)
     missing = [g for g in ("amine", "amide", "ester", "carboxylic acid", "alcohol", "ether",
                            "ketone or aldehyde", "nitrile", "sulfonamide", "sulfone", "thioether",
                            "halide", "aromatic ring", "heteroaromatic ring", "saturated ring")
