@@ -45,7 +45,13 @@ def main(argv):
         return 3
     weights = data[len(magic) + end + 1:tail]
     header.setdefault("provenance", {}).update(json.load(open(fields_path)))
-    body = magic + json.dumps(header, indent=1).encode("utf-8") + b"\n" + weights
+    # allow_nan=False: NaN is not JSON, and the program would refuse the file
+    try:
+        text = json.dumps(header, indent=1, allow_nan=False)
+    except ValueError:
+        sys.stderr.write("%s: a field is NaN or infinite; use null for an unknown value\n" % fields_path)
+        return 2
+    body = magic + text.encode("utf-8") + b"\n" + weights
     body += b"\nchecksum fnv1a64 %016x\n" % fnv1a64(body)
     fd, tmp = tempfile.mkstemp(dir=os.path.dirname(os.path.abspath(out)) or ".")
     with os.fdopen(fd, "wb") as f:

@@ -80,6 +80,17 @@ def figures(model, src, nadir="build/nadir"):
             if whole.get("spread") else float("nan")}
 
 
+def plain(v):
+    """v with NaN and infinities as None, for JSON (which has no NaN)."""
+    if isinstance(v, float) and (v != v or abs(v) == float("inf")):
+        return None
+    if isinstance(v, dict):
+        return {k: plain(x) for k, x in v.items()}
+    if isinstance(v, list):
+        return [plain(x) for x in v]
+    return v
+
+
 def meets_goals(f):
     return (f["relative_mae"] <= GOALS["relative_mae"] and f["rank_median"] >= GOALS["rank_median"]
             and f["force_mae"] <= GOALS["force_mae"])
@@ -103,7 +114,7 @@ def main(argv):
         sys.stdout.write(__doc__)
         return 0 if args and args[0] in ("-h", "--help") else 2
     f = figures(args[0], args[1], nadir)
-    print(json.dumps(f, indent=1) if "--json" in argv else describe(f))
+    print(json.dumps(plain(f), indent=1) if "--json" in argv else describe(f))
     return 0
 
 

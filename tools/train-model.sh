@@ -110,7 +110,7 @@ for s in ("test", "large"):
         print("%s: %s" % (s, tool.describe(res[s])))
 res["meets_goals"] = bool(res.get("test")) and tool.meets_goals(res["test"])
 res["goals"] = tool.GOALS
-json.dump(res, open(out, "w"), indent=1)
+json.dump(tool.plain(res), open(out, "w"), indent=1)
 PY
 
 # --- annotate
@@ -123,12 +123,13 @@ hdr, _ = json.JSONDecoder().raw_decode(raw[raw.index("\n") + 1:])
 p, f = hdr["provenance"], json.load(open(figs))
 sizes = p.get("training_sizes", {})
 t = f.get("test", {})
+nan = lambda v: "unknown" if v is None else "%.2f" % v
 if f["meets_goals"]:
     status = "meets the accuracy goals on held-out molecules (see heldout_test); confirm decisions that matter with higher-level methods"
 else:
     status = ("pilot: trained on %d structures; it does NOT meet the accuracy goals (held-out relative conformer "
-              "energy MAE %.2f kcal/mol, goal 0.5; force MAE %.2f, goal 1.5); not for decisions"
-              % (p.get("dataset_structures", 0), t.get("relative_mae", float("nan")), t.get("force_mae", float("nan"))))
+              "energy MAE %s kcal/mol, goal 0.5; force MAE %s, goal 1.5); not for decisions"
+              % (p.get("dataset_structures", 0), nan(t.get("relative_mae")), nan(t.get("force_mae"))))
 ann = {"status": status,
        "reference_method": "GFN2-xTB (Debian package xtb, %s), single-point energies and gradients via tools/xtb-single-point" % xtb,
        "date": datetime.date.today().isoformat(),
