@@ -214,3 +214,24 @@ int cli_model_path(const char *command, const char *given, int external_ok, char
                               "pass --model FILE%s", looked,
                      external_ok ? " or --potential-command CMD" : "");
 }
+
+int cli_finish(const char *command, const cJSON *doc, int to_stdout, const char *report,
+               nd_writer **w1, nd_writer **w2)
+{
+    nd_error err;
+    nd_error_clear(&err);
+    if (doc && to_stdout && nd_report_write(doc, "-", &err) != ND_OK)
+        return cli_error(command, &err);
+    if (doc && report && nd_report_write(doc, report, &err) != ND_OK)
+        return cli_error(command, &err);
+    nd_writer **ws[2] = {w1, w2};
+    for (int i = 0; i < 2; i++) {
+        if (!ws[i] || !*ws[i])
+            continue;
+        int s = nd_writer_close(*ws[i], &err);
+        *ws[i] = NULL;
+        if (s != ND_OK)
+            return cli_error(command, &err);
+    }
+    return 0;
+}

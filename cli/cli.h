@@ -67,6 +67,14 @@ int cli_model_path(const char *command, const char *given, int external_ok, char
  * does not meet the accuracy goals) to stderr, when the file states one. */
 void cli_model_notice(const char *command, const char *path, const nd_model *model);
 
+/* The end of a run that wrote files: the JSON document doc (may be NULL) to
+ * standard output when to_stdout and to report when it is not NULL, then
+ * the writers *w1 and *w2 (either may be NULL or hold NULL) closed and set
+ * to NULL. Returns 0, or prints the first error and returns its exit code
+ * (the writers not yet closed are left for the caller to abort). */
+int cli_finish(const char *command, const cJSON *doc, int to_stdout, const char *report,
+               nd_writer **w1, nd_writer **w2);
+
 /* Size domain: when the model's provenance names the largest molecule it
  * was trained on ("training_sizes": {"heavy_atoms_max": N}) and mol has
  * more heavy atoms, prints "nadir COMMAND: note: WHERE has H heavy atoms;

@@ -715,32 +715,8 @@ int cmd_modes(int argc, char **argv)
         }
     }
 
-    if (doc) {
-        if (o.json && nd_report_write(doc, "-", &err) != ND_OK) {
-            rc = cli_error(CMD, &err);
-            goto out;
-        }
-        if (o.report && nd_report_write(doc, o.report, &err) != ND_OK) {
-            rc = cli_error(CMD, &err);
-            goto out;
-        }
-    }
-    if (anim) {
-        int s = nd_writer_close(anim, &err);
-        anim = NULL;
-        if (s != ND_OK) {
-            rc = cli_error(CMD, &err);
-            goto out;
-        }
-    }
-    if (wout) {
-        int s = nd_writer_close(wout, &err);
-        wout = NULL;
-        if (s != ND_OK) {
-            rc = cli_error(CMD, &err);
-            goto out;
-        }
-    }
+    if ((rc = cli_finish(CMD, doc, o.json, o.report, &anim, &wout)) != 0)
+        goto out;
     if (failed == 0 && done == 0)
         rc = cli_fail(CMD, ND_EINPUT, "%s: no records", o.input);
     else if (failed > 0 && done == 0)

@@ -806,30 +806,8 @@ int cmd_optimize(int argc, char **argv)
     cJSON_AddNumberToObject(doc, "failed", failed_input + failed_compute);
     cJSON_AddItemToObject(doc, "failures", failures);
     failures = NULL;
-    if (o.json && nd_report_write(doc, "-", &err) != ND_OK) {
-        rc = cli_error(CMD, &err);
+    if ((rc = cli_finish(CMD, doc, o.json, o.report, &w, &tw)) != 0)
         goto out;
-    }
-    if (o.report && nd_report_write(doc, o.report, &err) != ND_OK) {
-        rc = cli_error(CMD, &err);
-        goto out;
-    }
-    if (w) {
-        int s = nd_writer_close(w, &err);
-        w = NULL;
-        if (s != ND_OK) {
-            rc = cli_error(CMD, &err);
-            goto out;
-        }
-    }
-    if (tw) {
-        int s = nd_writer_close(tw, &err);
-        tw = NULL;
-        if (s != ND_OK) {
-            rc = cli_error(CMD, &err);
-            goto out;
-        }
-    }
     int bad = unconverged + failed_input + failed_compute;
     if (!o.json && done + unconverged > 0)
         printf("energies in kcal/mol, forces in kcal/mol/angstrom%s; method %s%s\n",
