@@ -238,8 +238,76 @@ static void row(const char *what, int nthr, int atoms, double t, double cpu, dou
            1e3 * t, 1e3 * bw, t / bw, 1e3 * tc, 1e3 * bc, tc / bc, 1e6 * tc / atoms);
 }
 
-int main(void)
+/* One case only, for instruction counts (valgrind --tool=callgrind
+ * --toggle-collect=nd_potential_compute): a warm-up call and one call of
+ * energy + forces, then the energy, the gradient's norm and a fixed
+ * weighted sum of its components to full precision (to compare builds).
+ * Cases: molecule, batch, liquid, and liquid-tenth (389 molecules, 3,501
+ * atoms, more of them at the surface; ten times quicker under callgrind);
+ * modes: mean, one; model: a model file instead of the benchmark's random
+ * one (its elements must cover H C N O F). */
+static int run_once(const char *which, const char *mode_name, const char *path)
 {
+    nd_model *m;
+    nd_error err;
+    nd_model_spec spec;
+    nd_model_spec_defaults(&spec);
+    int s = path ? nd_model_load(path, &m, &err) : nd_model_new(&m, &spec, 12345, &err);
+    if (s != ND_OK) {
+        fprintf(stderr, "bench: %s\n", err.msg);
+        return 1;
+    }
+    nd_rng r;
+    nd_rng_seed(&r, 2024);
+    enum { NB = 64, NMOL = 3889 };
+    int n = 50, ms = 1;
+    double *x = malloc(sizeof(double) * 3 * 9 * NMOL), *g = malloc(sizeof(double) * 3 * 9 * NMOL);
+    int *z = malloc(sizeof(int) * 9 * NMOL);
+    /* the structures of the table, drawn in the same order */
+    double x50[150];
+    drug_like(x50, z, &r);
+    for (int i = 0; i < 150 * NB; i++)
+        x[i] = x50[i % 150] + 0.1 * nd_rng_normal(&r);
+    if (!strcmp(which, "batch")) {
+        ms = NB;
+    } else if (!strcmp(which, "liquid") || !strcmp(which, "liquid-tenth")) {
+        int nmol = which[6] ? NMOL / 10 : NMOL;
+        n = 9 * nmol;
+        liquid(nmol, x, z, &r);
+    } else if (!strcmp(which, "molecule")) {
+        memcpy(x, x50, sizeof x50);
+    } else {
+        fprintf(stderr, "bench: unknown case %s (molecule, batch, liquid, liquid-tenth)\n", which);
+        return 2;
+    }
+    int mode = !strcmp(mode_name, "one") ? 0 : ND_POTENTIAL_MEAN;
+    nd_potential *p;
+    double e[NB];
+    if (nd_potential_new(&p, m, n, z, mode, &err) ||
+        nd_potential_compute(p, ms, x, e, g, NULL, NULL, &err) ||
+        nd_potential_compute(p, ms, x, e, g, NULL, NULL, &err)) {
+        fprintf(stderr, "bench: %s\n", err.msg);
+        return 1;
+    }
+    double norm = 0, mix = 0;
+    for (size_t i = 0; i < 3 * (size_t)n * (size_t)ms; i++) {
+        norm += g[i] * g[i];
+        mix += g[i] * sin(0.7 * (double)i + 0.3);
+    }
+    printf("%s, %s: energy %.17g, |gradient| %.17g, weighted sum %.17g\n", which, mode_name, e[0],
+           sqrt(norm), mix);
+    nd_potential_free(p);
+    nd_model_free(m);
+    free(x);
+    free(g);
+    free(z);
+    return 0;
+}
+
+int main(int argc, char **argv)
+{
+    if (argc >= 4 && !strcmp(argv[1], "--once"))
+        return run_once(argv[2], argv[3], argc > 4 ? argv[4] : NULL);
     nd_model_spec spec;
     nd_model_spec_defaults(&spec);
     nd_model *m;

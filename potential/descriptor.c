@@ -1,5 +1,7 @@
 /* Behler-Parrinello symmetry functions and their contracted derivatives.
- * See descriptor.h for the definitions and the feature layout.
+ * See descriptor.h for the definitions and the feature layout. The angular
+ * terms of our default sets go to the vectorised kernel of
+ * angular_default.c; other sets take the general pair loops here.
  *
  * Speed: the per-pair loops over Gaussians and angular sets are written to
  * be vectorised (nd_exp, "omp simd"); -fno-trapping-math lets GCC turn the
@@ -8,6 +10,7 @@
  * flags. (sqrt stays out of the vectorised loops: with errno it is a call.) */
 #pragma GCC optimize("no-trapping-math")
 #include "potential/descriptor.h"
+#include "potential/angular_default.h"
 
 #include <math.h>
 #include <stddef.h>
@@ -99,8 +102,9 @@ size_t nd_descriptor_scratch_doubles(const nd_descriptor_params *p, int nel, int
     size_t nn = (size_t)(maxnn > 0 ? maxnn : 1);
     size_t ang = nn * (size_t)(4 + 2 * p->nangular + 6) +
                  2 * (size_t)(nel * (nel + 1) / 2) * (size_t)p->nangular;
-    size_t rad = radial_scratch(maxnn);
-    return ang > rad ? ang : rad;
+    size_t rad = radial_scratch(maxnn), dflt = nd_angular_default_scratch(nel, maxnn);
+    ang = ang > rad ? ang : rad;
+    return ang > dflt ? ang : dflt;
 }
 
 /* Gathers the neighbours of i inside the angular cutoff, grouped by element
@@ -289,10 +293,11 @@ static size_t radial_scratch(int nn) { return 11 * (size_t)(nn > 0 ? nn : 1); }
 /* Gathers the neighbours of i within the radial cutoff (skipping those
  * with index below i when skip_lower) and computes their distances, unit
  * vectors, cutoffs and, for a uniform grid, the three exponentials above.
- * dscratch: radial_scratch(nn) doubles; idx: nn ints. */
-static void radial_setup(const nd_descriptor_params *p, const radial_grid *grid, const double *x,
-                         int i, const int *nbr, int nn, int skip_lower, double *dscratch, int *idx,
-                         radial_pairs *rp)
+ * dscratch: radial_scratch(nn) doubles; idx: nn ints. The avx2 clone runs
+ * the vectorised loops (no reductions) four at a time: same bits. */
+__attribute__((target_clones("avx2", "default"))) static void
+radial_setup(const nd_descriptor_params *p, const radial_grid *grid, const double *x, int i,
+             const int *nbr, int nn, int skip_lower, double *dscratch, int *idx, radial_pairs *rp)
 {
     const double rc = p->radial_cutoff, rc2 = rc * rc;
     const double *xi = x + 3 * (size_t)i;
@@ -391,83 +396,72 @@ static inline void radial_values(const nd_descriptor_params *p, const radial_gri
     }
 }
 
-/* Whether p's angular sets are exactly our defaults (nd_descriptor_defaults:
- * zeta 1, 1, 4, 4, 2; lambda +1, -1, +1, -1, +1; the first four sharing one
- * eta). Those get the straight-line kernels below, with the powers of
- * 1 +- cos theta written out; any other set takes the general loops. */
-static int angular_default(const nd_descriptor_params *p)
+/* out[m] += scale g_m for the Gaussians of pair q: for a uniform grid
+ * straight from the recurrence (scale folded into its start), without a
+ * copy of the values. */
+static inline void radial_add(const nd_descriptor_params *p, const radial_grid *grid,
+                              const radial_pairs *rp, int q, double scale, double *out)
 {
-    static const int zeta[5] = {1, 1, 4, 4, 2}, lambda[5] = {1, -1, 1, -1, 1};
-    if (p->nangular != 5)
-        return 0;
-    for (int n = 0; n < 5; n++)
-        if (p->angular_zeta[n] != zeta[n] || p->angular_lambda[n] != lambda[n])
-            return 0;
-    return p->angular_eta[1] == p->angular_eta[0] && p->angular_eta[2] == p->angular_eta[0] &&
-           p->angular_eta[3] == p->angular_eta[0];
+    const int nr = p->nradial;
+    if (!grid->uniform) {
+        double g[ND_DESC_MAX_RADIAL];
+        radial_values(p, grid, rp, q, g);
+        for (int m = 0; m < nr; m++)
+            out[m] += g[m] * scale;
+        return;
+    }
+    const double kappa = grid->kappa;
+    int c = (int)rp->cq[q];
+    double gc = rp->g0[q] * scale, gm = gc, rho = rp->up[q];
+    out[c] += gc;
+    for (int m = c + 1; m < nr; m++) {
+        gm *= rho;
+        rho *= kappa;
+        out[m] += gm;
+    }
+    gm = gc;
+    rho = rp->dn[q];
+    for (int m = c - 1; m >= 0; m--) {
+        gm *= rho;
+        rho *= kappa;
+        out[m] += gm;
+    }
 }
 
-/* fwd_block for the default sets: e_b[0] (= e_b[1..3]) and e_b[4]. The
- * same sums as fwd_block, term by term (powers formed by squaring, so the
- * bits may differ from the general loop's repeated products in the last place). */
-static inline void fwd_block_default(const double *ga, const double *geo, const double *e, int b0,
-                                     int b1, double *S)
+/* sum_m w_m d(g_m fc)/dr = sum_m w_m g_m (fc' - 2 eta_m (r - s_m) fc) for
+ * pair q; for a uniform grid, with one eta, as fc' S0 - 2 eta fc S1 from
+ * the sums S0 = sum w g and S1 = sum w g (r - s) along the recurrence. */
+static inline double radial_dedr(const nd_descriptor_params *p, const radial_grid *grid,
+                                 const radial_pairs *rp, int q, const double *w)
 {
-    double s0 = 0, s1 = 0, s2 = 0, s3 = 0, s4 = 0;
-    for (int b = b0; b < b1; b++) {
-        const double *gb = geo + 4 * (size_t)b, *eb = e + (size_t)b * 5;
-        double c = ga[1] * gb[1] + ga[2] * gb[2] + ga[3] * gb[3];
-        double p1 = 1 + c, m1 = 1 - c, p2 = p1 * p1, m2 = m1 * m1;
-        double e0 = eb[0], e1 = eb[4];
-        s0 += p1 * e0;
-        s1 += m1 * e0;
-        s2 += p2 * p2 * e0;
-        s3 += m2 * m2 * e0;
-        s4 += p2 * e1;
+    const int nr = p->nradial;
+    const double *shift = p->radial_shift, r = rp->r[q], fc = rp->fc[q], dfc = rp->dfc[q];
+    if (!grid->uniform) {
+        double g[ND_DESC_MAX_RADIAL], dedr = 0;
+        radial_values(p, grid, rp, q, g);
+        for (int m = 0; m < nr; m++)
+            dedr += w[m] * g[m] * (dfc - 2 * p->radial_eta[m] * (r - shift[m]) * fc);
+        return dedr;
     }
-    S[0] = s0;
-    S[1] = s1;
-    S[2] = s2;
-    S[3] = s3;
-    S[4] = s4;
-}
-
-/* grad_block for the default sets (see fwd_block_default). */
-static inline void grad_block_default(const double *ga, const double *geo, const double *e,
-                                      const double *de, const double *ha, const double *hb,
-                                      const double *hc, double *aa, double *acc, int b0, int b1)
-{
-    double a0 = 0, a1 = 0, a2 = 0, a3 = 0, a4 = 0;
-    for (int b = b0; b < b1; b++) {
-        const double *gb = geo + 4 * (size_t)b, *eb = e + (size_t)b * 5,
-                     *deb = de + (size_t)b * 5;
-        double c = ga[1] * gb[1] + ga[2] * gb[2] + ga[3] * gb[3];
-        double p1 = 1 + c, m1 = 1 - c, p2 = p1 * p1, m2 = m1 * m1;
-        double p3 = p2 * p1, m3 = m2 * m1, p4 = p2 * p2, m4 = m2 * m2;
-        double e0 = eb[0], e1 = eb[4], d0 = deb[0], d1 = deb[4];
-        /* dT/dcos (zeta lambda (1 + lambda c)^(zeta - 1), the factor zeta
-         * lambda is in ha), dT/dr_a, dT/dr_b */
-        double A = (ha[0] + ha[1] + ha[2] * p3 + ha[3] * m3) * e0 + ha[4] * p1 * e1;
-        double Ba = (hb[0] * p1 + hb[1] * m1 + hb[2] * p4 + hb[3] * m4) * e0 + hb[4] * p2 * e1;
-        double Bb = (hc[0] * p1 + hc[1] * m1 + hc[2] * p4 + hc[3] * m4) * d0 + hc[4] * p2 * d1;
-        double *bb = acc + 5 * (size_t)b;
-        double Ac = A * c;
-        a0 += Ba;
-        a1 += A * gb[1];
-        a2 += A * gb[2];
-        a3 += A * gb[3];
-        a4 += Ac;
-        bb[0] += Bb;
-        bb[1] += A * ga[1];
-        bb[2] += A * ga[2];
-        bb[3] += A * ga[3];
-        bb[4] += Ac;
+    const double kappa = grid->kappa;
+    int c = (int)rp->cq[q];
+    double gc = rp->g0[q], gm = gc, rho = rp->up[q];
+    double s0 = w[c] * gc, s1 = w[c] * gc * (r - shift[c]);
+    for (int m = c + 1; m < nr; m++) {
+        gm *= rho;
+        rho *= kappa;
+        s0 += w[m] * gm;
+        s1 += w[m] * gm * (r - shift[m]);
     }
-    aa[0] += a0;
-    aa[1] += a1;
-    aa[2] += a2;
-    aa[3] += a3;
-    aa[4] += a4;
+    gm = gc;
+    rho = rp->dn[q];
+    for (int m = c - 1; m >= 0; m--) {
+        gm *= rho;
+        rho *= kappa;
+        s0 += w[m] * gm;
+        s1 += w[m] * gm * (r - shift[m]);
+    }
+    return dfc * s0 - 2 * grid->eta * fc * s1;
 }
 
 /* Index of the unordered element pair (a, b) among nel elements. */
@@ -490,22 +484,21 @@ void nd_descriptor_atom(const nd_descriptor_params *p, int nel, const double *x,
     radial_grid grid = radial_grid_of(p);
     radial_pairs rp;
     radial_setup(p, &grid, x, i, nbr, nn, 0, dscratch, iscratch, &rp);
-    for (int q = 0; q < rp.cnt; q++) {
-        double gm[ND_DESC_MAX_RADIAL], fc = rp.fc[q];
-        radial_values(p, &grid, &rp, q, gm);
-        double *g = G + (size_t)species[nbr[rp.idx[q]]] * nr;
-        for (int m = 0; m < nr; m++)
-            g[m] += gm[m] * fc;
-    }
+    for (int q = 0; q < rp.cnt; q++)
+        radial_add(p, &grid, &rp, q, rp.fc[q], G + (size_t)species[nbr[rp.idx[q]]] * nr);
     if (na == 0)
         return;
+    double *GA = G + (size_t)nel * nr;
+    if (nd_angular_is_default(p)) {
+        nd_angular_default_features(p, nel, x, species, i, nbr, nn, GA, dscratch, iscratch);
+        return;
+    }
     double *geo = dscratch, *e = geo + 4 * (size_t)nn, *de = e + (size_t)nn * na;
     double *tmp = de + (size_t)nn * na;
     int block[ND_DESC_MAX_ELEMENTS + 1];
     int cnt = angular_setup(p, nel, x, species, i, nbr, nn, geo, e, de, iscratch, block, tmp);
-    double *GA = G + (size_t)nel * nr;
     double norm[ND_DESC_MAX_ANGULAR];
-    int zmax = 0, off[ND_DESC_MAX_ANGULAR], dflt = angular_default(p);
+    int zmax = 0, off[ND_DESC_MAX_ANGULAR];
     for (int n = 0; n < na; n++) {
         norm[n] = ldexp(1.0, 1 - p->angular_zeta[n]);
         zmax = p->angular_zeta[n] > zmax ? p->angular_zeta[n] : zmax;
@@ -523,10 +516,7 @@ void nd_descriptor_atom(const nd_descriptor_params *p, int nel, const double *x,
             if (b0 >= b1)
                 continue;
             double S[ND_DESC_MAX_ANGULAR];
-            if (dflt)
-                fwd_block_default(ga, geo, e, b0, b1, S);
-            else
-                fwd_block(na, zmax, off, ga, geo, e, b0, b1, S);
+            fwd_block(na, zmax, off, ga, geo, e, b0, b1, S);
             double *g = GA + (size_t)pair_index(za, zb, nel) * na;
             for (int n = 0; n < na; n++)
                 g[n] += norm[n] * ea[n] * S[n];
@@ -547,27 +537,30 @@ static void atom_grad(const nd_descriptor_params *p, int nel, const double *x, c
     const int nr = p->nradial, na = p->nangular;
     if (nn > 0)
         memset(gj, 0, sizeof(double) * 3 * (size_t)nn);
-    const double *shift = p->radial_shift;
     radial_grid grid = radial_grid_of(p);
     radial_pairs rp;
     radial_setup(p, &grid, x, i, nbr, nn, U != NULL, dscratch, iscratch, &rp);
     for (int q = 0; q < rp.cnt; q++) {
         int s = rp.idx[q], j = nbr[s];
-        double gm[ND_DESC_MAX_RADIAL], r = rp.r[q], fc = rp.fc[q], dfc = rp.dfc[q];
-        radial_values(p, &grid, &rp, q, gm);
         const double *ui = u + (size_t)species[j] * nr;
-        const double *uj = U ? U + (size_t)row[j] * D + (size_t)species[i] * nr : NULL;
-        /* dE/dr = sum_m w_m g_m (fc' - 2 eta_m (r - s_m) fc) */
-        double dedr = 0;
-        for (int m = 0; m < nr; m++) {
-            double w = uj ? ui[m] + uj[m] : ui[m];
-            dedr += w * gm[m] * (dfc - 2 * p->radial_eta[m] * (r - shift[m]) * fc);
+        /* the weights of the pair's Gaussians: for both centres when shared */
+        double w[ND_DESC_MAX_RADIAL];
+        if (U) {
+            const double *uj = U + (size_t)row[j] * D + (size_t)species[i] * nr;
+            for (int m = 0; m < nr; m++)
+                w[m] = ui[m] + uj[m];
+        } else {
+            memcpy(w, ui, sizeof(double) * (size_t)nr);
         }
+        double dedr = radial_dedr(p, &grid, &rp, q, w);
         gj[3 * s + 0] = dedr * rp.ux[q];
         gj[3 * s + 1] = dedr * rp.uy[q];
         gj[3 * s + 2] = dedr * rp.uz[q];
     }
-    if (na > 0) {
+    if (na > 0 && nd_angular_is_default(p)) {
+        nd_angular_default_grad(p, nel, x, species, i, nbr, nn, u + (size_t)nel * nr, gj,
+                                dscratch, iscratch);
+    } else if (na > 0) {
         /* scratch: geometry, e, de, tmp, then per angular neighbour the sums
          * {sum B, sum A u_other (3), sum A c}, then the per-pair-kind weights */
         double *geo = dscratch, *e = geo + 4 * (size_t)nn, *de = e + (size_t)nn * na;
@@ -577,7 +570,7 @@ static void atom_grad(const nd_descriptor_params *p, int nel, const double *x, c
         int block[ND_DESC_MAX_ELEMENTS + 1];
         int cnt = angular_setup(p, nel, x, species, i, nbr, nn, geo, e, de, iscratch, block, tmp);
         const double *UA = u + (size_t)nel * nr;
-        int zmax = 0, off[ND_DESC_MAX_ANGULAR], dflt = angular_default(p);
+        int zmax = 0, off[ND_DESC_MAX_ANGULAR];
         for (int n = 0; n < na; n++) {
             zmax = p->angular_zeta[n] > zmax ? p->angular_zeta[n] : zmax;
             off[n] = (p->angular_lambda[n] > 0 ? ZS : 0) + p->angular_zeta[n];
@@ -614,10 +607,7 @@ static void atom_grad(const nd_descriptor_params *p, int nel, const double *x, c
                     hb[n] = wb[q + n] * dea[n];
                     hc[n] = wb[q + n] * ea[n];
                 }
-                if (dflt)
-                    grad_block_default(ga, geo, e, de, ha, hb, hc, aa, acc, b0, b1);
-                else
-                    grad_block(na, zmax, off, ga, geo, e, de, ha, hb, hc, aa, acc, b0, b1);
+                grad_block(na, zmax, off, ga, geo, e, de, ha, hb, hc, aa, acc, b0, b1);
             }
         }
         /* d c_ab / d x_a = (u_b - c u_a) / r_a, summed over b with weights A */
@@ -697,7 +687,7 @@ void nd_descriptor_atom_tangent(const nd_descriptor_params *p, int nel, const do
     }
     double *VA = v + (size_t)nel * nr;
     double norm[ND_DESC_MAX_ANGULAR], zl[ND_DESC_MAX_ANGULAR];
-    int zmax = 0, off[ND_DESC_MAX_ANGULAR], dflt = angular_default(p);
+    int zmax = 0, off[ND_DESC_MAX_ANGULAR], dflt = nd_angular_is_default(p);
     for (int n = 0; n < na; n++) {
         norm[n] = ldexp(1.0, 1 - p->angular_zeta[n]);
         zl[n] = (double)(p->angular_zeta[n] * p->angular_lambda[n]);

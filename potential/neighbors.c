@@ -45,20 +45,19 @@ static int scan_atom(const nd_neighbors *nb, const grid_info *g, const double *x
             int y = cy + dy;
             if (y < 0 || y >= g->ny)
                 continue;
-            for (int dx = -R; dx <= R; dx++) {
-                int xx = cx + dx;
-                if (xx < 0 || xx >= g->nx)
-                    continue;
-                int cell = g->c0 + (z * g->ny + y) * g->nx + xx;
-                const double *xq = nb->xs + 3 * (size_t)nb->cell_start[cell];
-                /* branch-free: the test fails about 3 times in 4, unpredictably */
-                for (int q = nb->cell_start[cell]; q < nb->cell_start[cell + 1]; q++, xq += 3) {
-                    double ex = xq[0] - xa[0], ey = xq[1] - xa[1], ez = xq[2] - xa[2];
-                    int b = nb->cell_atoms[q];
-                    int take = (ex * ex + ey * ey + ez * ez < rc2) & (b != a);
-                    list[cnt < cap ? cnt : cap - 1] = b;
-                    cnt += take;
-                }
+            /* the cells cx-R .. cx+R of this row are adjacent in cell order,
+             * and so are their atoms: one run */
+            int x0 = cx - R > 0 ? cx - R : 0, x1 = cx + R < g->nx - 1 ? cx + R : g->nx - 1;
+            int row = g->c0 + (z * g->ny + y) * g->nx;
+            int q0 = nb->cell_start[row + x0], q1 = nb->cell_start[row + x1 + 1];
+            const double *xq = nb->xs + 3 * (size_t)q0;
+            /* branch-free: the test fails about 3 times in 4, unpredictably */
+            for (int q = q0; q < q1; q++, xq += 3) {
+                double ex = xq[0] - xa[0], ey = xq[1] - xa[1], ez = xq[2] - xa[2];
+                int b = nb->cell_atoms[q];
+                int take = (ex * ex + ey * ey + ez * ez < rc2) & (b != a);
+                list[cnt < cap ? cnt : cap - 1] = b;
+                cnt += take;
             }
         }
     }

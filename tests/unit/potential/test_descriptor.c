@@ -293,9 +293,9 @@ static void test_shared_contraction(void **state)
     free(scr);
 }
 
-/* The default angular sets take straight-line kernels; the same sets in
- * another order take the general loops. Features and contracted gradients
- * must agree, set by set, to rounding. */
+/* The default angular sets take the vectorised kernel of angular_default.c;
+ * the same sets in another order take the general pair loops. Features and
+ * contracted gradients must agree, set by set, to rounding. */
 static void test_default_kernels_match_general(void **state)
 {
     (void)state;
