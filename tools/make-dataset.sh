@@ -18,15 +18,16 @@
 #   conformers distance-geometry embeddings from distinct starts (nadir build)
 #   torsions   shapes with rotatable bonds turned by random angles (our own
 #              script; clash check), from the conformers
-#   thermal    Gaussian displacements of conformers and torsion-varied shapes
-#              (RMS per atom 0.05 A heavy, 0.10 A hydrogen, times a per-
-#              structure scale in [0.5, 1.3]; the size of thermal motion at
-#              300-600 K, common practice, no source)
 #   relax      relaxation paths: nadir's L-BFGS with xtb single points as the
 #              potential, on a few conformers per molecule (more for the test
 #              set: its minima give the relative conformer energies of the
 #              held-out evaluation); every k-th frame, the minimum itself, and
 #              small displacements about the minimum (half the thermal size)
+#   thermal    Gaussian displacements of conformers and torsion-varied shapes
+#              (RMS per atom 0.05 A heavy, 0.10 A hydrogen, times a per-
+#              structure scale in [0.5, 1.3]; the size of thermal motion at
+#              300-600 K, common practice, no source); after relax, so that an
+#              interrupted run has the near-minimum structures first
 #   scans      relaxed torsion scans (nadir optimize --scan, xtb single points)
 #              of one rotatable bond on a seeded fraction of the molecules
 #   summary    counts, element counts, energy and force ranges (summary.json),
@@ -297,7 +298,10 @@ for s in train test large basis; do
   fi
 done
 
-for stage in conformers torsions thermal; do
+# The stages that label generated structures, one after the other over every
+# set.
+generated() {  # generated STAGE...
+for stage in "$@"; do
   has "$STAGES" $stage || continue
   for s in train test large basis; do
     has "$SETS" $s || continue
@@ -322,6 +326,11 @@ for stage in conformers torsions thermal; do
     esac
   done
 done
+}
+# Relaxations come before the thermal displacements of the conformers: their
+# minima give the held-out evaluation, and near-minimum structures matter
+# most for conformer energies, so an interrupted run has those first.
+generated conformers torsions
 
 # ---------------------------------------------------------------- relax
 # In chunks of CHUNK molecules, each finished chunk marked, so an interrupted
@@ -386,6 +395,8 @@ EOF
     done <"$R/chunks.n$nm.txt"
   done
 fi
+
+generated thermal
 
 # ---------------------------------------------------------------- scans
 if has "$STAGES" scans && [ "$(awk -v f="$SCANFRAC" 'BEGIN{print (f > 0)}')" = 1 ]; then
