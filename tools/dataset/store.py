@@ -32,12 +32,13 @@ Pack format ("nadir-label-pack", version 1), xz-compressed as a whole:
            conformers and displacements differ little, so the differences are
            small numbers), and each block is split into its four byte planes
            before compression.
-Rounding: coordinates to 1e-5 A (an energy change of about 1e-3 kcal/mol at
-most for the forces seen), forces to 1e-3 kcal/mol/A (the label audit finds
-the reference gradients consistent with their energies to about 1e-2, so the
-rounding is well below the labels' own noise); energies and every other
-member are kept exactly. The rounding costs nothing in accuracy and halves
-the packs' size.
+Rounding: coordinates to 1e-5 A (moving a structure of 24 atoms by that
+changes its energy by about 1e-3 kcal/mol for typical forces), forces to
+1e-3 kcal/mol/A (the label audit finds the reference gradients consistent
+with their energies to about 1e-2, so the rounding is below the labels' own
+noise); energies and every other member are kept exactly. Measured: about
+330 bytes per structure for conformers of the training molecules (24 atoms
+on average), 13% less than with steps ten times finer.
 """
 import hashlib
 import io
