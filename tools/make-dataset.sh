@@ -382,11 +382,16 @@ EOF
         touch "$b.opt.done"
         echo "relax $(basename "$b") $(grep -c -E '^[0-9]+$' "$c") $(( $(date +%s) - t0 ))" >>"$WORK/logs/timing.txt"
       fi
-      [ -f "$b.frames.xyz" ] || $PY "$HELP" frames "$b.traj.xyz" "$b.frames.xyz" --every "$EVERY" 2>>"$LOG"
-      [ -f "$b.minima.xyz" ] || $PY "$HELP" retitle "$b.min.xyz" "$b.minima.xyz"
-      [ -f "$b.near.xyz" ] || $PY "$HELP" thermal "$b.minima.xyz" "$b.near.xyz" --per-structure "$TH_MIN" \
-          --seed "$SEED" --heavy 0.025 --hydrogen 0.05 2>>"$LOG"
       cn=$(basename "$b")
+      # the files to label, unless labelled already (the label store keeps
+      # the done markers, not these derived files nor the trajectories)
+      L=$WORK/labels/$s.relax.$cn.c$CONF.r$RELAX_S
+      [ -f "$b.frames.xyz" ] || [ -f "$L.frames.done" ] \
+          || $PY "$HELP" frames "$b.traj.xyz" "$b.frames.xyz" --every "$EVERY" 2>>"$LOG"
+      [ -f "$b.minima.xyz" ] || { [ -f "$L.minima.done" ] && [ -f "$L.near.done" ]; } \
+          || $PY "$HELP" retitle "$b.min.xyz" "$b.minima.xyz"
+      [ -f "$b.near.xyz" ] || [ -f "$L.near.done" ] || $PY "$HELP" thermal "$b.minima.xyz" "$b.near.xyz" \
+          --per-structure "$TH_MIN" --seed "$SEED" --heavy 0.025 --hydrogen 0.05 2>>"$LOG"
       # one audit per four chunks: the paths hold the most strained structures
       au=0; [ "$AUDIT" -gt 0 ] && case $cn in chunk???[048]-*) au=1 ;; esac
       label $s "relaxation path" "$b.frames.xyz" "relax.$cn.c$CONF.r$RELAX_S.frames" $au || true

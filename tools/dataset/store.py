@@ -13,9 +13,9 @@ a save writes one new pack per set with the structures of WORK/SET.jsonl
 whose "id" no earlier pack holds, so the packs already committed never
 change.
 STORE/state.tar.xz holds the run's small state files (done markers, split,
-relaxation minima and reports, logs; not the regenerable inputs under gen/
-nor the bulky trajectories), rewritten by each save; load extracts only the
-files WORK lacks.
+relaxation minima and reports, logs; not the regenerable inputs nor the
+trajectories and the frames derived from them), rewritten by each save; load
+extracts only the files WORK lacks.
 
 Pack format ("nadir-label-pack", version 1), xz-compressed as a whole:
   line 1   JSON object: "format", "version", "records", "coordinate_step"
@@ -45,6 +45,7 @@ import io
 import json
 import lzma
 import os
+import re
 import sys
 import tarfile
 
@@ -54,9 +55,14 @@ FORMAT, VERSION = "nadir-label-pack", 1
 COORD_STEP, FORCE_STEP = 1e-5, 1e-3
 SETS = ("train", "test", "large", "basis")
 LIMIT = 2**31 - 1
-# State kept across machines: everything under WORK but these.
+# State kept across machines: everything under WORK but the program copy,
+# the generated inputs (gen/, and the relaxation starts and chunks, rebuilt
+# from them), files being written (hidden or .tmp), the datasets themselves
+# (the packs hold them) and the bulky files derived from relaxations, which
+# make-dataset.sh needs only until their labels are done.
 SKIP_DIRS = ("bin", "gen")
-SKIP_SUFFIXES = (".traj.xyz", ".jsonl", ".cache", ".tmp")
+SKIP_SUFFIXES = (".traj.xyz", ".frames.xyz", ".near.xyz", ".minima.xyz", ".jsonl", ".cache", ".tmp")
+SKIP_NAME = re.compile(r"^(\.|start\.n\d+\.xyz$|chunk\d{4}-\d{2}\.xyz$)")
 
 
 def fail(msg):
@@ -237,7 +243,7 @@ def state_files(work):
         if rel == ".":
             dirs[:] = [x for x in dirs if x not in SKIP_DIRS]
         for f in sorted(files):
-            if not f.endswith(SKIP_SUFFIXES):
+            if not f.endswith(SKIP_SUFFIXES) and not SKIP_NAME.match(f):
                 yield os.path.normpath(os.path.join(rel, f))
 
 
