@@ -108,17 +108,6 @@ static void setup(const nd_descriptor_params *p, int nel, const double *x, const
     }
 }
 
-/* Index of the unordered element pair (a, b) among nel elements. */
-static inline int pair_index(int a, int b, int nel)
-{
-    if (a > b) {
-        int t = a;
-        a = b;
-        b = t;
-    }
-    return a * nel - a * (a - 1) / 2 + (b - a);
-}
-
 __attribute__((target_clones("avx2", "default"))) void
 nd_angular_default_features(const nd_descriptor_params *p, int nel, const double *x,
                             const int *species, int i, const int *nbr, int nn, double *GA,
@@ -158,7 +147,7 @@ nd_angular_default_features(const nd_descriptor_params *p, int nel, const double
             double eq0 = b.e0[q], eq4 = b.e4[q];
             for (int A = 0; A < np && b.block[b.present[A]] < q; A++) {
                 const double *F0 = F + (size_t)A * 5 * st + (size_t)q;
-                double *G = GA + (size_t)pair_index(b.present[A], zb, nel) * 5;
+                double *G = GA + (size_t)nd_angular_pair_index(b.present[A], zb, nel) * 5;
                 G[0] += NORM[0] * eq0 * F0[0];
                 G[1] += NORM[1] * eq0 * F0[st];
                 G[2] += NORM[2] * eq0 * F0[2 * st];
@@ -186,7 +175,7 @@ nd_angular_default_grad(const nd_descriptor_params *p, int nel, const double *x,
     for (int A = 0; A < np; A++)
         for (int B = 0; B < np; B++) {
             int zb = b.present[B];
-            const double *U = UA + (size_t)pair_index(b.present[A], zb, nel) * 5;
+            const double *U = UA + (size_t)nd_angular_pair_index(b.present[A], zb, nel) * 5;
             for (int n = 0; n < 5; n++) {
                 double w = NORM[n] * U[n], *Wn = W + ((size_t)A * 5 + (size_t)n) * st;
                 for (int q = b.block[zb]; q < b.block[zb + 1]; q++)

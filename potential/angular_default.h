@@ -17,6 +17,19 @@
 
 #include <stddef.h>
 
+/* Index of the unordered element pair (a, b) among nel elements: the order
+ * of the angular feature blocks, shared by the general loops of
+ * descriptor.c and the kernels here. */
+static inline int nd_angular_pair_index(int a, int b, int nel)
+{
+    if (a > b) {
+        int t = a;
+        a = b;
+        b = t;
+    }
+    return a * nel - a * (a - 1) / 2 + (b - a);
+}
+
 /* Whether p's angular sets are exactly the default ones above. */
 int nd_angular_is_default(const nd_descriptor_params *p);
 

@@ -464,17 +464,6 @@ static inline double radial_dedr(const nd_descriptor_params *p, const radial_gri
     return dfc * s0 - 2 * grid->eta * fc * s1;
 }
 
-/* Index of the unordered element pair (a, b) among nel elements. */
-static inline int pair_index(int a, int b, int nel)
-{
-    if (a > b) {
-        int t = a;
-        a = b;
-        b = t;
-    }
-    return a * nel - a * (a - 1) / 2 + (b - a);
-}
-
 void nd_descriptor_atom(const nd_descriptor_params *p, int nel, const double *x, const int *species,
                         int i, const int *nbr, int nn, double *G, double *dscratch, int *iscratch)
 {
@@ -517,7 +506,7 @@ void nd_descriptor_atom(const nd_descriptor_params *p, int nel, const double *x,
                 continue;
             double S[ND_DESC_MAX_ANGULAR];
             fwd_block(na, zmax, off, ga, geo, e, b0, b1, S);
-            double *g = GA + (size_t)pair_index(za, zb, nel) * na;
+            double *g = GA + (size_t)nd_angular_pair_index(za, zb, nel) * na;
             for (int n = 0; n < na; n++)
                 g[n] += norm[n] * ea[n] * S[n];
         }
@@ -599,7 +588,7 @@ static void atom_grad(const nd_descriptor_params *p, int nel, const double *x, c
                 int b0 = block[zb] > a + 1 ? block[zb] : a + 1, b1 = block[zb + 1];
                 if (b0 >= b1)
                     continue;
-                size_t q = (size_t)pair_index(za, zb, nel) * na;
+                size_t q = (size_t)nd_angular_pair_index(za, zb, nel) * na;
                 /* factors of a, hoisted out of the loop over b */
                 double ha[ND_DESC_MAX_ANGULAR], hb[ND_DESC_MAX_ANGULAR], hc[ND_DESC_MAX_ANGULAR];
                 for (int n = 0; n < na; n++) {
@@ -711,7 +700,7 @@ void nd_descriptor_atom_tangent(const nd_descriptor_params *p, int nel, const do
             double dc = 0;
             for (int k = 0; k < 3; k++)
                 dc += (gb[1 + k] - c * ga[1 + k]) * ra[k] + (ga[1 + k] - c * gb[1 + k]) * rb[k];
-            double *vv = VA + (size_t)pair_index(za, zb, nel) * na;
+            double *vv = VA + (size_t)nd_angular_pair_index(za, zb, nel) * na;
             if (dflt) {
                 /* (1 + lambda c)^(zeta - 1) and ^zeta of the default sets */
                 double p1 = 1 + c, m1 = 1 - c, p2 = p1 * p1, m2 = m1 * m1;

@@ -641,7 +641,7 @@ static void test_frames(void **state)
     nd_modes m;
     assert_int_equal(nd_modes_analyse(&pot, &mol, NULL, NULL, NULL, NULL, &m, NULL, NULL, NULL), ND_OK);
     assert_int_equal(nd_modes_frame(&m, 0, 2, x, 0.25, 5, 20, out, NULL), ND_OK);
-    assert_close(fabs(out[2] - x[2]), 0.25, 1e-12); /* H, which moves most, at the crest */
+    assert_close(fabs(out[2] - x[2]), 0.25, 1e-12); /* H, which moves most, at the turning point */
     assert_true(fabs(out[5] - x[5]) < 0.25 * 0.1);
     assert_int_equal(nd_modes_frame(&m, 0, 2, x, 0.25, 0, 20, out, NULL), ND_OK);
     assert_true(memcmp(out, x, sizeof x) == 0);
