@@ -27,7 +27,10 @@ typedef struct {
 } grid_info;
 
 /* Counts the neighbours of atom a and writes the first cap of them
- * (all of them when the count is at most cap) to list, in cell order. */
+ * (all of them when the count is at most cap) to list, in cell order.
+ * list holds cap + 1 ints: every tested atom is written at the next free
+ * place before the test decides whether it counts, so the place after the
+ * last neighbour must be a spare one, never a neighbour's. */
 static int scan_atom(const nd_neighbors *nb, const grid_info *g, const double *x, int a,
                      double rc2, int *list, int cap)
 {
@@ -56,7 +59,7 @@ static int scan_atom(const nd_neighbors *nb, const grid_info *g, const double *x
                 double ex = xq[0] - xa[0], ey = xq[1] - xa[1], ez = xq[2] - xa[2];
                 int b = nb->cell_atoms[q];
                 int take = (ex * ex + ey * ey + ez * ez < rc2) & (b != a);
-                list[cnt < cap ? cnt : cap - 1] = b;
+                list[cnt < cap ? cnt : cap] = b;
                 cnt += take;
             }
         }
@@ -176,8 +179,8 @@ int nd_neighbors_build(nd_neighbors *nb, int nstruct, int n, const double *x, do
     int wstride;
     for (;;) {
         int stride = nb->stride > 0 ? nb->stride : 64;
-        wstride = stride;
-        size_t want = (size_t)N * (size_t)stride;
+        wstride = stride + 1; /* one spare place per atom, see scan_atom */
+        size_t want = (size_t)N * (size_t)wstride;
         if (want > nb->cap_tmp) {
             int *t = realloc(nb->tmp, (want ? want : 1) * sizeof(int));
             if (!t)
@@ -188,7 +191,7 @@ int nd_neighbors_build(nd_neighbors *nb, int nstruct, int n, const double *x, do
         int need = 0;
 #pragma omp parallel for schedule(static) reduction(max : need) if (N >= 256)
         for (int a = 0; a < N; a++) {
-            int c = scan_atom(nb, &grids[a / n], x, a, rc2, nb->tmp + (size_t)a * stride, stride);
+            int c = scan_atom(nb, &grids[a / n], x, a, rc2, nb->tmp + (size_t)a * wstride, stride);
             nb->start[a + 1] = c;
             if (c > need)
                 need = c;

@@ -100,11 +100,37 @@ static void test_batch_and_sparse(void **state)
     nd_neighbors_free(&nb);
 }
 
+/* A reused search sizes its per-atom slots from the previous call; an atom
+ * with exactly as many neighbours as a slot holds once lost its last
+ * neighbour to a later-tested atom (often itself, r = 0, which made the
+ * angular features NaN). Clusters of 1 to 150 atoms all within the cutoff,
+ * growing and then shrinking, hit every slot size on both sides. */
+static void test_slot_boundaries(void **state)
+{
+    (void)state;
+    nd_rng r;
+    nd_rng_seed(&r, 23);
+    nd_neighbors nb;
+    memset(&nb, 0, sizeof nb);
+    double *x = malloc(sizeof(double) * 3 * 150);
+    for (int pass = 0; pass < 2; pass++)
+        for (int k = 1; k <= 150; k++) {
+            int n = pass == 0 ? k : 151 - k;
+            random_box(&r, n, 2.0, x); /* every pair closer than 3.5 */
+            assert_int_equal(nd_neighbors_build(&nb, 1, n, x, 5.2, NULL), ND_OK);
+            assert_int_equal(nb.maxnn, n - 1);
+            check_brute(&nb, 1, n, x, 5.2);
+        }
+    free(x);
+    nd_neighbors_free(&nb);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(test_sizes_vs_brute_force),
         cmocka_unit_test(test_batch_and_sparse),
+        cmocka_unit_test(test_slot_boundaries),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
