@@ -163,6 +163,11 @@ static int reader_setup(nd_reader *r, const char *display, const char *path_for_
                         const unsigned char *mem, size_t size, nd_format fmt, nd_error *err)
 {
     const char *why;
+    /* our own model and dataset files are the likeliest wrong inputs */
+    if (size >= 11 && memcmp(mem, "nadir-model", 11) == 0)
+        return nd_fail(err, ND_EINPUT,
+                       "%s: this is a nadir model file, not a molecule file; give it with --model",
+                       display);
     nd_format seen = sniff(mem, size, &why);
     if (fmt == ND_FORMAT_AUTO) {
         nd_format ext = path_for_ext ? nd_format_from_path(path_for_ext) : ND_FORMAT_AUTO;

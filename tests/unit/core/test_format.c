@@ -271,6 +271,12 @@ static void test_content_check(void **state)
     const char *junk = "{\"not\": \"a molecule\"}\n";
     assert_int_equal(nd_reader_open_memory(&r, NULL, junk, strlen(junk), ND_FORMAT_AUTO, &err), ND_EINPUT);
     assert_contains(err.msg, "cannot tell the format");
+    /* a model file given where molecules belong: once read as SMILES, one
+     * error per line for thousands of lines */
+    const char *model = "nadir-model 1\n{\n \"format\": \"nadir model\"\n";
+    assert_int_equal(nd_reader_open_memory(&r, "default.model", model, strlen(model),
+                                           ND_FORMAT_AUTO, &err), ND_EINPUT);
+    assert_contains(err.msg, "default.model: this is a nadir model file");
     assert_int_equal(nd_reader_open_memory(&r, NULL, "", 0, ND_FORMAT_AUTO, &err), ND_EINPUT);
     assert_contains(err.msg, "empty input");
     /* an empty named file: one "no records" error, then the end */
