@@ -51,7 +51,10 @@ static void usage(FILE *f)
             "                       lowest_frequency_per_cm, imaginary_modes_repaired and, when\n"
             "                       known, free_energy_kcal_per_mol,\n"
             "                       relative_free_energy_kcal_per_mol,\n"
-            "                       energy_uncertainty_kcal_per_mol, model_unsure\n"
+            "                       energy_uncertainty_kcal_per_mol, model_unsure,\n"
+            "                       mirror_image_of_rank (mirror-image pairs, such as the\n"
+            "                       two gauche forms of butane, are both listed: both are\n"
+            "                       populated; the table notes them)\n"
             "  --report FILE        JSON report: every conformer and the search's counts\n"
             "  --window KCAL        report conformers within KCAL of the lowest (5; -1: all)\n"
             "  --max N              report at most N conformers (0: no limit, the default)\n"
@@ -292,6 +295,8 @@ static int write_conformers(nd_writer *w, const nd_molecule *in, const nd_search
             if (st == ND_OK)
                 st = nd_molecule_set_data(&out, "model_unsure", c->uncertain ? "yes" : "no", err);
         }
+        if (st == ND_OK && c->mirror_of >= 0)
+            st = set_number(&out, "mirror_image_of_rank", "%.0f", c->mirror_of + 1.0, err);
         if (st == ND_OK)
             st = nd_writer_write(w, &out, err);
     }
@@ -360,6 +365,10 @@ static cJSON *conformer_json(const nd_conformer *c, int rank, int natoms, const 
     if (isfinite(c->uncertainty))
         cJSON_AddBoolToObject(j, "model_unsure", c->uncertain);
     cJSON_AddNumberToObject(j, "found_at_candidate", (double)c->found_at);
+    if (c->mirror_of >= 0)
+        cJSON_AddNumberToObject(j, "mirror_image_of_rank", c->mirror_of + 1);
+    else
+        cJSON_AddNullToObject(j, "mirror_image_of_rank");
     cJSON *xyz = cJSON_AddArrayToObject(j, "coordinates");
     for (int i = 0; i < natoms; i++) {
         cJSON *a = cJSON_CreateArray();
@@ -394,7 +403,10 @@ static void print_table(int rec, const nd_molecule *mol, const nd_search *s, int
         char unc[32] = "-";
         if (isfinite(f->uncertainty))
             snprintf(unc, sizeof unc, "%.3f", f->uncertainty);
-        printf("  %7.4f  %11.1f  %11s  %s%s\n", f->weight, f->lowest_freq, unc,
+        char mirror[32] = "";
+        if (f->mirror_of >= 0)
+            snprintf(mirror, sizeof mirror, "mirror image of %d ", f->mirror_of + 1);
+        printf("  %7.4f  %11.1f  %11s  %s%s%s\n", f->weight, f->lowest_freq, unc, mirror,
                f->repaired ? "repaired " : "", f->uncertain ? "model unsure" : "");
     }
     printf("  energies in kcal/mol; %s in kcal/mol relative to the lowest; Boltzmann weights at "

@@ -84,6 +84,21 @@ double nd_dedup_rmsd(const nd_dedup *d, const double *a, const double *b, int *p
     return best;
 }
 
+double nd_dedup_mirror_rmsd(const nd_dedup *d, const double *a, const double *b)
+{
+    double *m = malloc(3 * ((size_t)d->natoms + 1) * sizeof *m);
+    if (!m)
+        return -1;
+    for (int i = 0; i < d->natoms; i++) {
+        m[3 * i] = -b[3 * i];
+        m[3 * i + 1] = b[3 * i + 1];
+        m[3 * i + 2] = b[3 * i + 2];
+    }
+    double r = nd_dedup_rmsd(d, a, m, NULL);
+    free(m);
+    return r;
+}
+
 int nd_dedup_symmetry_count(const nd_dedup *d, int *complete)
 {
     if (complete)

@@ -34,6 +34,13 @@ void nd_dedup_free(nd_dedup *d);
  * permutation (natoms entries, image in b of each atom of a). */
 double nd_dedup_rmsd(const nd_dedup *d, const double *a, const double *b, int *perm_out);
 
+/* The same RMSD between a and the mirror image of b (b with x negated): near
+ * zero when b is the mirror image of a conformer like a, as the gauche+ and
+ * gauche- forms of butane are. A potential of distances and angles gives
+ * both the same energy; a chemist counts them as one shape twice. -1 on no
+ * memory. */
+double nd_dedup_mirror_rmsd(const nd_dedup *d, const double *a, const double *b);
+
 /* Number of symmetry permutations used, and whether the list is complete. */
 int nd_dedup_symmetry_count(const nd_dedup *d, int *complete);
 

@@ -896,6 +896,21 @@ int nd_search_finish(nd_search *s, nd_error *err)
     }
     free(w);
     free(sk);
+    /* mirror-image pairs: kept as two conformers (both are populated, the
+     * weights count both), but named, so a reader does not take them for
+     * two different shapes */
+    for (int r = 0; r < nsel; r++) {
+        nd_conformer *cf = &s->conf[r];
+        cf->mirror_of = -1;
+        for (int q = 0; q < r && cf->mirror_of < 0; q++) {
+            if (s->conf[q].mirror_of >= 0 ||
+                fabs(s->conf[q].energy - cf->energy) > s->opt.dedup.energy_tol)
+                continue;
+            double d = nd_dedup_mirror_rmsd(s->dd, s->conf[q].xyz, cf->xyz);
+            if (d >= 0 && d < s->opt.dedup.rmsd)
+                cf->mirror_of = q;
+        }
+    }
     s->nconf = nsel;
     s->st.reported = nsel;
     if (s->opt.members && s->opt.members_k > 0) {

@@ -163,6 +163,8 @@ typedef struct nd_conformer {
     double uncertainty;     /* ensemble spread of rel_energy, kcal/mol (NAN without ensemble) */
     int uncertain;          /* 1 if uncertainty > opt.uncertainty_mark */
     long found_at;          /* 0-based number of the candidate that first found it */
+    int mirror_of;          /* 0-based rank of the lower-ranked conformer it is the mirror
+                               image of (same energy within the duplicate tolerance), or -1 */
 } nd_conformer;
 
 typedef struct nd_search nd_search;

@@ -25,6 +25,45 @@ check_fails "neither file nor SMILES" 3 "neither a file nor a SMILES string" "$N
 check_fails "unwritable report checked first" 3 "--report" "$NADIR" conformers CCCC --potential-command false --report "$T/no/such/dir/r.json"
 check_fails "a potential that fails" 4 "record 1" "$NADIR" conformers 'CCO' --potential-command false --max-tries 2
 
+# Mirror images, with the bundled model: butane's two gauche forms are one
+# shape and its mirror image (both listed, the second named), the anti form
+# is nobody's; a molecule with a stereocentre has no mirror-image conformers
+# (its mirror image is the other enantiomer).
+check "butane with the bundled model" "$NADIR" conformers 'CCCC butane' --report "$T/bu.json" -o "$T/bu.sdf"
+cp "$TAP_TMP/out" "$T/bu.txt"
+check "(S)-butan-2-ol with the bundled model" "$NADIR" conformers 'C[C@H](O)CC' --report "$T/bo.json"
+if /usr/bin/python3 - "$T/bu.json" "$T/bo.json" <<'PY'
+import json, math, sys
+def dihedral(c, i, j, k, l):
+    p = [c[n][1:] for n in (i, j, k, l)]
+    sub = lambda a, b: [a[0] - b[0], a[1] - b[1], a[2] - b[2]]
+    cross = lambda a, b: [a[1] * b[2] - a[2] * b[1], a[2] * b[0] - a[0] * b[2], a[0] * b[1] - a[1] * b[0]]
+    dot = lambda a, b: sum(x * y for x, y in zip(a, b))
+    b0, b1, b2 = sub(p[0], p[1]), sub(p[2], p[1]), sub(p[3], p[2])
+    n1, n2 = cross(b0, b1), cross(b1, b2)
+    m = cross(n1, b1)
+    return math.degrees(math.atan2(dot(m, n2) / math.sqrt(dot(b1, b1)), dot(n1, n2)))
+bu = json.load(open(sys.argv[1]))["molecules"][0]["conformers"]
+pairs = 0
+for c in bu:
+    phi = dihedral(c["coordinates"], 0, 1, 2, 3)
+    m = c["mirror_image_of_rank"]
+    if abs(phi) > 150:
+        assert m is None, (c["rank"], phi)
+    if m is not None:
+        o = bu[m - 1]
+        assert m < c["rank"] and abs(o["energy"] - c["energy"]) <= 0.05
+        assert abs(dihedral(o["coordinates"], 0, 1, 2, 3) + phi) < 5, (phi, m)
+        pairs += 1
+assert pairs >= 1, [(c["rank"], c["mirror_image_of_rank"]) for c in bu]
+bo = json.load(open(sys.argv[2]))["molecules"][0]["conformers"]
+assert all(c["mirror_image_of_rank"] is None for c in bo), [c["mirror_image_of_rank"] for c in bo]
+PY
+then ok "mirror-image conformers named: butane's gauche pair, none for a stereocentre"
+else not_ok "mirror-image conformers named: butane's gauche pair, none for a stereocentre"; fi
+if grep -q "mirror image of" "$T/bu.txt" && grep -q "<mirror_image_of_rank>" "$T/bu.sdf"; then
+  ok "mirror images noted in the table and the SD items"; else not_ok "mirror images noted in the table and the SD items" "$(cat "$T/bu.txt")"; fi
+
 if ! command -v xtb >/dev/null 2>&1; then
   echo "ok $((TAP_N + 1)) - runs with the reference method # SKIP xtb not installed"
   TAP_N=$((TAP_N + 1))

@@ -68,6 +68,16 @@ static void test_symmetric_copy_merges(void **state)
     assert_true(nd_dedup_rmsd(d, anti, swapped, NULL) < 1e-6);
     assert_true(nd_dedup_rmsd(d, anti, gauche, NULL) > 0.5);
     assert_true(nd_dedup_rmsd(d, gauche, gauche_minus, NULL) > 0.3); /* mirror images stay distinct */
+    /* ... but are recognised as mirror images (heavy atoms: the hydrogens
+     * of this sketch are not mirrored), also after renumbering and turning;
+     * a gauche form is not its own mirror image */
+    assert_true(nd_dedup_mirror_rmsd(d, gauche, gauche_minus) < 1e-6);
+    double turned[24];
+    for (int i = 0; i < 8; i++)
+        memcpy(turned + 3 * i, gauche_minus + 3 * perm[i], 3 * sizeof(double));
+    nd_rmsd_apply(8, turned, rot, t);
+    assert_true(nd_dedup_mirror_rmsd(d, gauche, turned) < 1e-6);
+    assert_true(nd_dedup_mirror_rmsd(d, gauche, gauche) > 0.3);
 
     double all[5 * 24], e[5] = {-3.25, -2.5, -3.25 + 0.01, -2.5, -2.5 + 0.5};
     memcpy(all, anti, sizeof anti);

@@ -103,6 +103,22 @@ static void test_butane(void **state)
     assert_int_equal(anti, 1);
     assert_int_equal(gplus, 1);
     assert_int_equal(gminus, 1);
+    /* the gauche pair is named as mirror images (the higher-ranked one
+     * points to the other); anti is its own mirror image, nobody's */
+    int pair = 0;
+    for (int r = 0; r < 3; r++) {
+        const nd_conformer *f = nd_search_conformer(s, r);
+        double phi = nd_sampler_dihedral(f->xyz, 0, 1, 2, 3);
+        if (fabs(phi) > 160) {
+            assert_int_equal(f->mirror_of, -1);
+        } else if (f->mirror_of >= 0) {
+            assert_true(f->mirror_of < r);
+            double phi2 = nd_sampler_dihedral(nd_search_conformer(s, f->mirror_of)->xyz, 0, 1, 2, 3);
+            assert_close(phi2, -phi, 0.5);
+            pair++;
+        }
+    }
+    assert_int_equal(pair, 1);
     nd_search_free(s);
     release(&u);
 }
