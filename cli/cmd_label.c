@@ -416,6 +416,20 @@ static int read_items(const label_options *o, item **out, int *nout, int *failed
             (*failed)++;
             continue;
         }
+        /* an impossible charge and spin, most often an ion read from XYZ
+         * (which states no charge): said here, where the file is known; the
+         * program decides (a model potential may not care about electrons) */
+        long electrons = -(long)mol.charge;
+        for (int i = 0; i < mol.natoms; i++)
+            electrons += mol.z[i];
+        int mult = mol.multiplicity > 0 ? mol.multiplicity : 1;
+        if (electrons < 0 || (electrons + mult) % 2 == 0)
+            fprintf(stderr, "nadir %s: note: %s, record %d: %ld electrons (charge %+d) cannot have "
+                            "spin multiplicity %d%s\n",
+                    CMD, o->input, rec, electrons, mol.charge, mult,
+                    nd_reader_format(r) == ND_FORMAT_XYZ
+                        ? "; an XYZ file states no charge: give ions as SD files with charges"
+                        : "");
         int ca, cb;
         double dmin = closest_pair(mol.natoms, mol.xyz, &ca, &cb);
         if (dmin < MIN_DISTANCE) {

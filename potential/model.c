@@ -250,7 +250,29 @@ int nd_model_check(const nd_model *m, const nd_molecule *mol, nd_error *err)
     int charge = mol->charge;
     if (charge == 0 && mol->formal_charge)
         charge = nd_molecule_formal_charge_sum(mol);
-    return nd_model_check_atoms(m, mol->natoms, mol->z, charge, err);
+    int s = nd_model_check_atoms(m, mol->natoms, mol->z, charge, err);
+    if (s != ND_OK || !m->neutral_only)
+        return s;
+    /* a neutral model learned closed-shell molecules: an odd electron count
+     * is a radical or an ion whose charge the file does not state (XYZ
+     * holds none), and its energy would be a confident-looking guess */
+    long electrons = -charge;
+    for (int i = 0; i < mol->natoms; i++)
+        electrons += mol->z[i];
+    char dom[160];
+    if (electrons % 2 != 0 || mol->multiplicity > 1) {
+        nd_model_domain(m, dom, sizeof dom);
+        if (electrons % 2 != 0)
+            return nd_fail(err, ND_EDOMAIN,
+                           "molecule has %ld electrons, an odd number: a radical, or an ion whose "
+                           "charge the input does not state (XYZ files hold none; give an SD file "
+                           "with the charges); outside the model's domain (%s, closed-shell)",
+                           electrons, dom);
+        return nd_fail(err, ND_EDOMAIN,
+                       "molecule has spin multiplicity %d: outside the model's domain (%s, "
+                       "closed-shell)", mol->multiplicity, dom);
+    }
+    return ND_OK;
 }
 
 /* ---------------------------------------------------------------- files */

@@ -96,7 +96,9 @@ void nd_model_domain(const nd_model *m, char *buf, int size);
 int nd_model_check_atoms(const nd_model *m, int n, const int *z, int charge, nd_error *err);
 
 /* The same for a molecule (total charge: mol->charge, or the sum of formal
- * charges when that is non-zero and mol->charge is 0). */
+ * charges when that is non-zero and mol->charge is 0); a model for neutral
+ * molecules also refuses an odd electron count or a multiplicity above 1
+ * (it learned closed-shell molecules). */
 int nd_model_check(const nd_model *m, const nd_molecule *mol, nd_error *err);
 
 /* 64-bit FNV-1a hash of n bytes, continuing from h (start with

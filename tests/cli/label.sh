@@ -105,6 +105,12 @@ check_fails "unreadable input" 3 "nope.xyz" \
   "$NADIR" label "$T/nope.xyz" -o "$T/f.jsonl" --potential-command "$FAKE"
 check_fails "data key missing" 3 "no data item name to use as the molecule key" \
   "$NADIR" label $D/clusters.xyz -o "$T/f.jsonl" --potential-command "$FAKE" --key-from data:name
+# an ion read from XYZ (no charge there): 11 electrons cannot be a singlet;
+# said, and left to the program (this fake one labels it)
+printf '5\nammonium\nN 0 0 0\nH 0.6 0.6 0.6\nH -0.6 -0.6 0.6\nH -0.6 0.6 -0.6\nH 0.6 -0.6 -0.6\n' > "$T/nh4.xyz"
+check_fails "odd electron count as a singlet: noted, the fix named" 0 \
+  "record 1: 11 electrons (charge +0) cannot have spin multiplicity 1; an XYZ file states no charge" \
+  "$NADIR" label "$T/nh4.xyz" -o "$T/ion.jsonl" --potential-command "$FAKE"
 printf '3\nbroken\nO 0 0 0\nH 0 0 0.1\nH 1 0 0\n' > "$T/close.xyz"
 check_fails "atoms on top of each other" 3 "record 1: atoms 1 and 2 are only 0.100 A apart" \
   "$NADIR" label "$T/close.xyz" -o "$T/f.jsonl" --potential-command "$FAKE"

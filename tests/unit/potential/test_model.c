@@ -130,6 +130,16 @@ static void test_domain_checks(void **state)
     mol.formal_charge[0] = -1;
     assert_int_equal(nd_model_check(m, &mol, &err), ND_EDOMAIN);
     assert_contains(err.msg, "charge -1");
+    /* C=O with one hydrogen: formyl, 15 electrons, a radical (or an ion the
+     * file does not mark) */
+    mol.formal_charge[0] = 0;
+    assert_int_equal(nd_model_check(m, &mol, &err), ND_EDOMAIN);
+    assert_contains(err.msg, "15 electrons, an odd number");
+    assert_int_equal(nd_molecule_add_atom(&mol, 1, -1.0, 0, 0, NULL), ND_OK);
+    assert_int_equal(nd_model_check(m, &mol, &err), ND_OK); /* formaldehyde */
+    mol.multiplicity = 3;
+    assert_int_equal(nd_model_check(m, &mol, &err), ND_EDOMAIN);
+    assert_contains(err.msg, "multiplicity 3");
     nd_molecule_free(&mol);
     nd_model_free(m);
 }
