@@ -337,7 +337,12 @@ generated conformers torsions
 # run redoes at most one chunk's relaxations.
 CHUNK=10
 if has "$STAGES" relax; then
-  for s in test large basis train; do   # the test minima first: the evaluation needs them
+  # the test minima first (the evaluation needs them), then the minima and
+  # paths the model learns from (training on embedded conformers and torsion
+  # shapes alone leaves it without a single relaxed structure, the kind it
+  # must rank), the larger molecules' (an extension test only, and the
+  # costliest) last
+  for s in test basis train large; do
     has "$SETS" $s || continue
     case $s in train) RELAX_S=$RELAX ;; test) RELAX_S=$RELAX_TEST ;; *) RELAX_S=$RELAX_LARGE ;; esac
     [ "$RELAX_S" -gt 0 ] || continue
