@@ -13,7 +13,10 @@ minima tagged "minimum" (as tools/make-dataset.sh writes them). Prints:
   - the Spearman rank correlation of the minima's energies within each
     molecule of three or more: median (goal >= 0.9);
   - force components over every structure: MAE (goal <= 1.5 kcal/mol/A);
-  - the counts behind them.
+  - the counts behind them, and the force MAE of each stage of the set
+    (tag: embedded conformers, torsion-varied shapes, relaxation paths,
+    minima, thermal displacements...), since a model that is good on the
+    shapes it trained on can still be poor at the relaxed ones it must rank.
 Relaxations from different starts often reach the same minimum: minima of
 one molecule within SAME kcal/mol of each other in reference energy count
 once, or their arbitrary order would be scored as ranking. Everything is
@@ -39,17 +42,24 @@ def evaluate(nadir, model, path):
 
 
 def split(src, tmp):
-    """The whole set and its distinct minima as two dataset files."""
+    """The whole set, its distinct minima, and each stage (tag) as dataset
+    files; returns the first two, the count of minima and {tag: file}."""
     every, minima = os.path.join(tmp, "all.jsonl"), os.path.join(tmp, "minima.jsonl")
-    kept, n = {}, 0
+    kept, n, header, stages = {}, 0, "", {}
     opener = gzip.open if src.endswith(".gz") else open
     with opener(src, "rt") as f, open(every, "w") as a, open(minima, "w") as b:
         for line in f:
             a.write(line)
             if '"elements"' not in line:
                 b.write(line)
+                header += line
                 continue
             d = json.loads(line)
+            tag = d.get("tag") or "untagged"
+            if tag not in stages:
+                stages[tag] = open(os.path.join(tmp, "stage%d.jsonl" % len(stages)), "w")
+                stages[tag].write(header)
+            stages[tag].write(line)
             if d.get("tag") != "minimum":
                 continue
             have = kept.setdefault(d["key"], [])
@@ -57,15 +67,18 @@ def split(src, tmp):
                 have.append(d["energy"])
                 b.write(line)
                 n += 1
-    return every, minima, n
+    for t in stages.values():
+        t.close()
+    return every, minima, n, {t: h.name for t, h in stages.items()}
 
 
 def figures(model, src, nadir="build/nadir"):
     tmp = tempfile.mkdtemp(prefix="nd-figures-")
     try:
-        every, minima, n = split(src, tmp)
+        every, minima, n, stages = split(src, tmp)
         whole = evaluate(nadir, model, every)
         mins = evaluate(nadir, model, minima) if n else None
+        by_stage = {t: evaluate(nadir, model, path)["force"]["mae"] for t, path in sorted(stages.items())}
     finally:
         for name in os.listdir(tmp):
             os.remove(os.path.join(tmp, name))
@@ -75,7 +88,7 @@ def figures(model, src, nadir="build/nadir"):
             "minima": n, "force_mae": whole["force"]["mae"],
             "relative_mae": mins["relative_energy"]["mae"] if mins else float("nan"),
             "rank_median": rc["median"] if rc["molecules"] else float("nan"),
-            "rank_molecules": rc["molecules"],
+            "rank_molecules": rc["molecules"], "force_mae_by_stage": by_stage,
             "energy_within_one_spread": whole["spread"]["energy"]["within_one_spread"]
             if whole.get("spread") else float("nan")}
 
@@ -100,7 +113,9 @@ def describe(f):
     return ("%d structures of %d molecules, %d distinct minima: relative conformer energy MAE %.2f kcal/mol, "
             "rank correlation median %.3f (%d molecules), force MAE %.2f kcal/mol/A"
             % (f["structures"], f["molecules"], f["minima"], f["relative_mae"], f["rank_median"],
-               f["rank_molecules"], f["force_mae"]))
+               f["rank_molecules"], f["force_mae"])
+            + ("; by stage: " + ", ".join("%s %.2f" % kv for kv in f["force_mae_by_stage"].items())
+               if f.get("force_mae_by_stage") else ""))
 
 
 def main(argv):
