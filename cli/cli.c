@@ -76,6 +76,32 @@ int cli_parse_int(const char *s, int *out)
     return 0;
 }
 
+int cli_open_structures(const char *command, const char *path, nd_format fmt, nd_reader **r)
+{
+    nd_error err;
+    if (nd_reader_open(r, path, fmt, &err) == ND_OK)
+        return 0;
+    if (strcmp(path, "-") != 0 && access(path, F_OK) != 0 && errno == ENOENT) {
+        nd_reader *sr = NULL;
+        nd_molecule m;
+        nd_molecule_init(&m);
+        int smiles = nd_reader_open_memory(&sr, "argument", path, strlen(path), ND_FORMAT_SMILES,
+                                           NULL) == ND_OK &&
+                     nd_reader_next(sr, &m, NULL) == ND_OK;
+        nd_molecule_free(&m);
+        nd_reader_close(sr);
+        if (smiles)
+            return cli_fail(command, ND_EIO,
+                            "no file named '%s'; it reads as SMILES, but %s needs 3D structures: "
+                            "build them first (nadir build '%s' -o start.sdf)%s",
+                            path, command, path,
+                            strcmp(command, "label") == 0
+                                ? ""
+                                : ", or use nadir conformers, which takes SMILES");
+    }
+    return cli_error(command, &err);
+}
+
 int cli_check_output(const char *command, const char *option, const char *path)
 {
     if (!path || strcmp(path, "-") == 0)

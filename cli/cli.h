@@ -38,6 +38,13 @@ int cli_usage(const char *command, const char *fmt, ...) __attribute__((format(p
  * the option and returns ND_EXIT_INPUT. */
 int cli_check_output(const char *command, const char *option, const char *path);
 
+/* nd_reader_open for a command that needs 3D structures. When path names
+ * no file but reads as SMILES (a frequent slip: `nadir optimize 'CCO'`),
+ * the error says so and names the commands that help (build, or
+ * conformers, which takes SMILES). Returns 0, or prints the error and
+ * returns its exit code. */
+int cli_open_structures(const char *command, const char *path, nd_format fmt, nd_reader **r);
+
 /* When two atoms of mol are closer than 0.5 angstrom (a broken structure,
  * the usual reason a potential fails), writes " (atoms I and J are only D A
  * apart)" into buf and returns 1; otherwise buf = "" and 0. */

@@ -247,10 +247,8 @@ int cmd_energy(int argc, char **argv)
     }
     cli_model_notice(CMD, mpath, model);
     int K = nd_model_members(model);
-    if (nd_reader_open(&r, o.input, o.format, &err) != ND_OK) {
-        rc = cli_error(CMD, &err);
+    if ((rc = cli_open_structures(CMD, o.input, o.format, &r)) != 0)
         goto out;
-    }
     if (o.json) {
         doc = cJSON_CreateObject();
         cJSON *jm = cJSON_AddObjectToObject(doc, "model");

@@ -365,10 +365,8 @@ static int read_items(const label_options *o, item **out, int *nout, int *failed
     nd_molecule_init(&mol);
     item *items = NULL;
     int n = 0, cap = 0, rc = 0;
-    if (nd_reader_open(&r, o->input, ND_FORMAT_AUTO, &err) != ND_OK) {
-        rc = cli_error(CMD, &err);
+    if ((rc = cli_open_structures(CMD, o->input, ND_FORMAT_AUTO, &r)) != 0)
         goto done;
-    }
     if (nd_reader_format(r) == ND_FORMAT_SMILES) {
         rc = cli_fail(CMD, ND_EINPUT, "%s: SMILES has no coordinates; build 3D structures first",
                       o->input);

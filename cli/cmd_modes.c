@@ -583,10 +583,8 @@ int cmd_modes(int argc, char **argv)
     }
     if (model)
         cli_model_notice(CMD, mpath, model);
-    if (nd_reader_open(&rd, o.input, o.format, &err) != ND_OK) {
-        rc = cli_error(CMD, &err);
+    if ((rc = cli_open_structures(CMD, o.input, o.format, &rd)) != 0)
         goto out;
-    }
     if (nd_reader_format(rd) == ND_FORMAT_SMILES) {
         rc = cli_fail(CMD, ND_EINPUT, "%s: SMILES has no 3D coordinates; give .xyz or .sdf", o.input);
         goto out;

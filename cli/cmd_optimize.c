@@ -578,10 +578,8 @@ int cmd_optimize(int argc, char **argv)
     }
     if (model)
         cli_model_notice(CMD, mpath, model);
-    if (nd_reader_open(&r, o.input, o.format, &err) != ND_OK) {
-        rc = cli_error(CMD, &err);
+    if ((rc = cli_open_structures(CMD, o.input, o.format, &r)) != 0)
         goto out;
-    }
     if (o.output && nd_writer_open(&w, o.output, ND_FORMAT_AUTO, &err) != ND_OK) {
         rc = cli_error(CMD, &err);
         goto out;

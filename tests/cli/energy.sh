@@ -57,6 +57,11 @@ then ok "force = -dE/dx end to end; spreads consistent"; else not_ok "force = -d
 printf '2\nbromine\nC 0 0 0\nBr 1.9 0 0\n' > "$T/br.xyz"
 check_fails "element outside the model" 3 "atom 2 (Br): element not covered by the model" \
   "$NADIR" energy "$T/br.xyz" --model "$T/r.model"
+# an ion from XYZ, read as neutral: 11 electrons, refused with the cause
+printf '5\nammonium\nN 0 0 0\nH 0.6 0.6 0.6\nH -0.6 -0.6 0.6\nH -0.6 0.6 -0.6\nH 0.6 -0.6 -0.6\n' > "$T/nh4.xyz"
+check_fails "odd electron count outside a closed-shell model" 3 \
+  "record 1: molecule has 11 electrons, an odd number: a radical, or an ion whose charge the input does not state (XYZ files hold none" \
+  "$NADIR" energy "$T/nh4.xyz" --model "$T/r.model"
 cat "$T/br.xyz" "$T/m.xyz" > "$T/mix.xyz"
 check_fails "some records failed" 5 "record 1" "$NADIR" energy "$T/mix.xyz" --model "$T/r.model"
 # Without a bundled model next to the program or in the working directory.

@@ -101,6 +101,8 @@ check_fails "missing program" 4 "'no-such-program-anywhere': not found in PATH" 
 check_fails "unclosed quote in the command" 2 "unclosed '" \
   "$NADIR" label $D/clusters.xyz -o "$T/f.jsonl" --potential-command "$FAKE 'oops"
 check_fails "no command" 2 "add --potential-command" "$NADIR" label $D/clusters.xyz -o "$T/f.jsonl"
+check_fails "SMILES where a file belongs" 3 "no file named 'CCO'; it reads as SMILES, but label needs 3D structures: build them first (nadir build 'CCO' -o start.sdf)" \
+  "$NADIR" label CCO -o "$T/f.jsonl" --potential-command "$FAKE"
 check_fails "unreadable input" 3 "nope.xyz" \
   "$NADIR" label "$T/nope.xyz" -o "$T/f.jsonl" --potential-command "$FAKE"
 check_fails "data key missing" 3 "no data item name to use as the molecule key" \

@@ -12,6 +12,11 @@ POT="$PWD/tests/cli/morse_potential.py"
 check "--help exits 0" "$NADIR" optimize --help
 grep -q "^examples:" "$T/out" && ok "--help shows examples on stdout" || not_ok "--help shows examples"
 check_fails "no input: usage error" 2 "no input file given" "$NADIR" optimize
+check_fails "SMILES where a file belongs: the way to 3D named" 3 \
+  "no file named 'C1CCC1 cyclobutane'; it reads as SMILES, but optimize needs 3D structures: build them first (nadir build 'C1CCC1 cyclobutane' -o start.sdf), or use nadir conformers" \
+  "$NADIR" optimize 'C1CCC1 cyclobutane' --potential-command true
+check_fails "a missing file that is no SMILES: the system's word" 3 "cannot open no-such-dir/x.sdf: No such file or directory" \
+  "$NADIR" optimize no-such-dir/x.sdf --potential-command true
 check_fails "unknown method" 2 "unknown method 'newton'" "$NADIR" optimize x.xyz --method newton
 check_fails "unknown preset" 2 "unknown convergence preset 'loose'" "$NADIR" optimize x.xyz --convergence loose
 check_fails "bad --scan" 2 "--scan needs four atom numbers" "$NADIR" optimize x.xyz --scan 1,2,3
@@ -118,7 +123,7 @@ check_fails "frozen atom out of range" 3 "atom 3 is outside 1..2" "$NADIR" optim
 check_fails "backwards range" 3 "runs backwards" "$NADIR" optimize "$T/p2.xyz" --potential-command "$POT" --frozen 2-1
 check_fails "report in a missing directory: before the work" 3 "does not exist" "$NADIR" optimize "$T/p2.xyz" --potential-command "$POT" --report "$T/nodir/r.json"
 [ ! -s "$T/out" ] && ok "nothing relaxed before the report path failed" || not_ok "relaxed first" "$(cat "$T/out")"
-printf '3\nclash\nH 0 0 0\nH 0 0 0\nH 1 0 0\n' > "$T/clash.xyz"
+printf '4\nclash\nH 0 0 0\nH 0 0 0\nH 1 0 0\nH 2 0 0\n' > "$T/clash.xyz"
 "$NADIR" energy --make-random-model "$T/r.model" --elements H 2>/dev/null
 check_fails "coincident atoms named (learned model): input error" 3 "atoms 1 and 2 are only 0.000 A apart" "$NADIR" optimize "$T/clash.xyz" --model "$T/r.model"
 printf 'CCO ethanol\n' > "$T/s.smi"
