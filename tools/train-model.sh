@@ -42,6 +42,8 @@ basis), evaluates it on the held-out sets and records provenance and status.
   --seed S            seed (default 1)
   --threads N         threads (default 2)
   --start-from MODEL  warm start from MODEL (its layers and members)
+  --learning-rate R   initial Adam step (default: nadir train's; a warm start
+                      from a well-trained model may take a smaller one)
   --resume            continue an interrupted run of the same NAME
   --help              this text
 EOF
@@ -50,7 +52,7 @@ EOF
 [ $# -ge 1 ] || { usage >&2; exit 2; }
 case "$1" in -h|--help) usage; exit 0 ;; -*) echo "train-model: NAME first (see --help)" >&2; exit 2 ;; esac
 NAME=$1; shift
-WORK=$ROOT/data/dataset EXTRA=() LAYERS="" MEMBERS=4 EPOCHS=100 SEED=1 THREADS=2 START="" RESUME=""
+WORK=$ROOT/data/dataset EXTRA=() LAYERS="" MEMBERS=4 EPOCHS=100 SEED=1 THREADS=2 START="" RESUME="" RATE=""
 while [ $# -gt 0 ]; do
   case "$1" in
     --resume) RESUME=--resume; shift; continue ;;
@@ -66,6 +68,7 @@ while [ $# -gt 0 ]; do
     --seed) SEED=$2 ;;
     --threads) THREADS=$2 ;;
     --start-from) START=$2 ;;
+    --learning-rate) RATE=$2 ;;
     *) echo "train-model: unknown option '$1' (see --help)" >&2; exit 2 ;;
   esac
   shift 2
@@ -92,6 +95,7 @@ say "training file $DATA: $(grep -c '"elements"' "$DATA") structures"
 opts=(--members "$MEMBERS" --epochs "$EPOCHS" --seed "$SEED" --threads "$THREADS" --cache)
 [ -n "$LAYERS" ] && opts+=(--layers "$LAYERS")
 if [ -n "$START" ]; then opts=(--start-from "$START" --epochs "$EPOCHS" --seed "$SEED" --threads "$THREADS" --cache); fi
+[ -n "$RATE" ] && opts+=(--learning-rate "$RATE")
 MODEL=$OUT/$NAME.model
 say "nadir train ${opts[*]} $RESUME"
 "$NADIR" train "$DATA" -o "$MODEL" "${opts[@]}" $RESUME 2> >(tee -a "$OUT/train.log" >&2) | tee -a "$OUT/run.log"
@@ -115,9 +119,11 @@ PY
 
 # --- annotate
 XTB=$(xtb --version 2>/dev/null | grep -m1 -o 'version [0-9.]*' || echo "version unknown")
-"$PY" - "$MODEL" "$OUT/figures.json" "$XTB" "$OUT/provenance.json" <<'PY'
-import json, sys, datetime
-model, figs, xtb, out = sys.argv[1:]
+"$PY" - "$MODEL" "$OUT/figures.json" "$XTB" "$OUT/provenance.json" "$DATA" <<'PY'
+import collections, json, re, sys, datetime
+model, figs, xtb, out, data = sys.argv[1:]
+# what the model saw, by stage, from the training file itself
+tags = collections.Counter(m.group(1) for m in map(re.compile(r'"tag": *"([^"]*)"').search, open(data)) if m)
 raw = open(model, "rb").read().decode("latin-1")
 hdr, _ = json.JSONDecoder().raw_decode(raw[raw.index("\n") + 1:])
 p, f = hdr["provenance"], json.load(open(figs))
@@ -135,8 +141,8 @@ ann = {"status": status,
        "date": datetime.date.today().isoformat(),
        "domain": {"elements": hdr.get("elements"), "charge": "neutral molecules only",
                   "heavy_atoms_seen": "up to %s per molecule" % sizes.get("heavy_atoms_max", "?"),
-                  "structures": "embedded conformers, torsion-varied shapes, thermal displacements, relaxation paths, "
-                                "minima, torsion scans (tools/make-dataset.sh)"},
+                  "structures": "GFN2-xTB labels by stage (tools/make-dataset.sh): "
+                                + ", ".join("%s %d" % kv for kv in sorted(tags.items(), key=lambda kv: -kv[1]))},
        "heldout_test": t, "heldout_large": f.get("large")}
 json.dump(ann, open(out, "w"), indent=1)
 print(status)
