@@ -163,7 +163,7 @@ static int reader_setup(nd_reader *r, const char *display, const char *path_for_
                         const unsigned char *mem, size_t size, nd_format fmt, nd_error *err)
 {
     const char *why;
-    /* our own model and dataset files are the likeliest wrong inputs */
+    /* a model file given as molecules would read as SMILES, one error per line */
     if (size >= 11 && memcmp(mem, "nadir-model", 11) == 0)
         return nd_fail(err, ND_EINPUT,
                        "%s: this is a nadir model file, not a molecule file; give it with --model",
