@@ -417,9 +417,7 @@ static int read_items(const label_options *o, item **out, int *nout, int *failed
         /* an impossible charge and spin, most often an ion read from XYZ
          * (which states no charge): said here, where the file is known; the
          * program decides (a model potential may not care about electrons) */
-        long electrons = -(long)mol.charge;
-        for (int i = 0; i < mol.natoms; i++)
-            electrons += mol.z[i];
+        long electrons = nd_molecule_electrons(&mol, mol.charge);
         int mult = mol.multiplicity > 0 ? mol.multiplicity : 1;
         if (electrons < 0 || (electrons + mult) % 2 == 0)
             fprintf(stderr, "nadir %s: note: %s, record %d: %ld electrons (charge %+d) cannot have "

@@ -269,6 +269,14 @@ int nd_molecule_formal_charge_sum(const nd_molecule *m)
     return q;
 }
 
+long nd_molecule_electrons(const nd_molecule *m, int charge)
+{
+    long e = -(long)charge;
+    for (int i = 0; i < m->natoms; i++)
+        e += m->z[i];
+    return e;
+}
+
 int nd_molecule_validate(const nd_molecule *m, nd_error *err)
 {
     for (int i = 0; i < m->natoms; i++) {

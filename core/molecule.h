@@ -92,6 +92,11 @@ int nd_molecule_formula(const nd_molecule *m, char *buf, int size);
 /* Sum of formal charges. */
 int nd_molecule_formal_charge_sum(const nd_molecule *m);
 
+/* Electrons of the molecule at total charge `charge`: the sum of its atomic
+ * numbers minus the charge (odd: a radical, or an ion whose charge is not
+ * stated). */
+long nd_molecule_electrons(const nd_molecule *m, int charge);
+
 /* Checks atomic numbers, finite coordinates and bond indices; ND_EINPUT
  * naming the first bad atom or bond. */
 int nd_molecule_validate(const nd_molecule *m, nd_error *err);

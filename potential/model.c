@@ -256,9 +256,7 @@ int nd_model_check(const nd_model *m, const nd_molecule *mol, nd_error *err)
     /* a neutral model learned closed-shell molecules: an odd electron count
      * is a radical or an ion whose charge the file does not state (XYZ
      * holds none), and its energy would be a confident-looking guess */
-    long electrons = -charge;
-    for (int i = 0; i < mol->natoms; i++)
-        electrons += mol->z[i];
+    long electrons = nd_molecule_electrons(mol, charge);
     char dom[160];
     if (electrons % 2 != 0 || mol->multiplicity > 1) {
         nd_model_domain(m, dom, sizeof dom);
