@@ -44,6 +44,8 @@ basis), evaluates it on the held-out sets and records provenance and status.
   --start-from MODEL  warm start from MODEL (its layers and members)
   --learning-rate R   initial Adam step (default: nadir train's; a warm start
                       from a well-trained model may take a smaller one)
+  --force-weight W    weight of the force term of the loss (default: nadir
+                      train's, 1; smaller weights the energies more)
   --resume            continue an interrupted run of the same NAME
   --help              this text
 EOF
@@ -52,7 +54,7 @@ EOF
 [ $# -ge 1 ] || { usage >&2; exit 2; }
 case "$1" in -h|--help) usage; exit 0 ;; -*) echo "train-model: NAME first (see --help)" >&2; exit 2 ;; esac
 NAME=$1; shift
-WORK=$ROOT/data/dataset EXTRA=() LAYERS="" MEMBERS=4 EPOCHS=100 SEED=1 THREADS=2 START="" RESUME="" RATE=""
+WORK=$ROOT/data/dataset EXTRA=() LAYERS="" MEMBERS=4 EPOCHS=100 SEED=1 THREADS=2 START="" RESUME="" RATE="" FWEIGHT=""
 while [ $# -gt 0 ]; do
   case "$1" in
     --resume) RESUME=--resume; shift; continue ;;
@@ -69,6 +71,7 @@ while [ $# -gt 0 ]; do
     --threads) THREADS=$2 ;;
     --start-from) START=$2 ;;
     --learning-rate) RATE=$2 ;;
+    --force-weight) FWEIGHT=$2 ;;
     *) echo "train-model: unknown option '$1' (see --help)" >&2; exit 2 ;;
   esac
   shift 2
@@ -96,6 +99,7 @@ opts=(--members "$MEMBERS" --epochs "$EPOCHS" --seed "$SEED" --threads "$THREADS
 [ -n "$LAYERS" ] && opts+=(--layers "$LAYERS")
 if [ -n "$START" ]; then opts=(--start-from "$START" --epochs "$EPOCHS" --seed "$SEED" --threads "$THREADS" --cache); fi
 [ -n "$RATE" ] && opts+=(--learning-rate "$RATE")
+[ -n "$FWEIGHT" ] && opts+=(--force-weight "$FWEIGHT")
 MODEL=$OUT/$NAME.model
 say "nadir train ${opts[*]} $RESUME"
 "$NADIR" train "$DATA" -o "$MODEL" "${opts[@]}" $RESUME 2> >(tee -a "$OUT/train.log" >&2) | tee -a "$OUT/run.log"
