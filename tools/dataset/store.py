@@ -283,16 +283,17 @@ def load(store, work):
         path = os.path.join(work, s + ".jsonl")
         header, have = (read_jsonl(path) if os.path.exists(path) else (None, []))
         ids = {r["id"] for r in have}
-        added = []
+        added, stored = [], 0
         for p in ps:
             h, rows = unpack(p)
             header = header or h
+            stored += len(rows)
             added.extend(r for r in rows if r["id"] not in ids)
             ids.update(r["id"] for r in rows)
         if added:
             write_jsonl(path, header, have + added)
-        print("store: %s: %d structures from %d packs, %d were already in %s"
-              % (s, len(have) + len(added), len(ps), len(have), path))
+        print("store: %s: %d structures in %d packs, %d of them new to %s (now %d)"
+              % (s, stored, len(ps), len(added), path, len(have) + len(added)))
     state = os.path.join(store, "state.tar.xz")
     if os.path.exists(state):
         n = 0
