@@ -409,6 +409,17 @@ fi
 generated thermal
 
 # ---------------------------------------------------------------- scans
+# One relaxed torsion scan (nadir optimize --scan, xtb single points) of
+# molecule KEY about torsion TOR, from B.xyz; B.scan.done marks it finished.
+scan_one() {  # scan_one SET B KEY TOR
+  local s=$1 b=$2 key=$3 tor=$4 t0 rc=0
+  t0=$(date +%s)
+  OMP_NUM_THREADS=1 "$NADIR" optimize "$b.xyz" --potential-command "$REF" --scan "$tor" --scan-range "-180,$((180 - SCANSTEP)),$SCANSTEP" \
+      -o "$b.scan.xyz" --report "$b.scan.json" </dev/null >"$b.scan.log" 2>&1 || rc=$?
+  if [ $rc != 0 ] && [ $rc != 5 ]; then say "scan $s/$key failed (exit $rc)"; return 0; fi
+  touch "$b.scan.done"
+  echo "scan $s/$key $((360 / SCANSTEP)) $(( $(date +%s) - t0 ))" >>"$WORK/logs/timing.txt"
+}
 if has "$STAGES" scans && [ "$(awk -v f="$SCANFRAC" 'BEGIN{print (f > 0)}')" = 1 ]; then
   for s in train test large basis; do
     has "$SETS" $s || continue
@@ -416,16 +427,17 @@ if has "$STAGES" scans && [ "$(awk -v f="$SCANFRAC" 'BEGIN{print (f > 0)}')" = 1
     G=$WORK/gen/$s.n$nm
     D=$WORK/scans/$s.c$CONF.f$SCANFRAC
     [ -f "$D/scans.txt" ] || $PY "$HELP" scan-setup "$G.c$CONF.sdf" "$D" --fraction "$SCANFRAC" --seed "$SEED" 2>>"$LOG"
+    # the scans themselves (a relaxation per angle, one core each) run
+    # THREADS at a time; their points are labelled afterwards
+    while read -r key tor; do
+      [ -f "$D/$key.scan.done" ] && continue
+      while [ "$(jobs -rp | wc -l)" -ge "$THREADS" ]; do wait -n || true; done
+      scan_one "$s" "$D/$key" "$key" "$tor" &
+    done <"$D/scans.txt"
+    wait
     while read -r key tor; do
       b=$D/$key
-      if [ ! -f "$b.scan.done" ]; then
-        t0=$(date +%s); rc=0
-        OMP_NUM_THREADS=1 "$NADIR" optimize "$b.xyz" --potential-command "$REF" --scan "$tor" --scan-range "-180,$((180 - SCANSTEP)),$SCANSTEP" \
-            -o "$b.scan.xyz" --report "$b.scan.json" </dev/null >"$b.scan.log" 2>&1 || rc=$?
-        if [ $rc != 0 ] && [ $rc != 5 ]; then say "scan $s/$key failed (exit $rc)"; continue; fi
-        touch "$b.scan.done"
-        echo "scan $s/$key $((360 / SCANSTEP)) $(( $(date +%s) - t0 ))" >>"$WORK/logs/timing.txt"
-      fi
+      [ -f "$b.scan.done" ] || continue
       [ -f "$b.points.xyz" ] || $PY "$HELP" retitle "$b.scan.xyz" "$b.points.xyz"
       label $s "torsion scan" "$b.points.xyz" "scan.$key.c$CONF.f$SCANFRAC" 0 || true
     done <"$D/scans.txt"
