@@ -49,7 +49,12 @@ TESTLIB   = $(patsubst %.c,$(BUILD)/obj/%.o,$(wildcard tests/lib/*.c))
 all: deps
 	@$(MAKE) --no-print-directory lib-and-cli
 
-lib-and-cli: $(BUILD)/libnadir.a $(BUILD)/nadir
+lib-and-cli: $(BUILD)/libnadir.a $(BUILD)/nadir $(BUILD)/xtb-single-point
+
+# The compiled reference wrapper (tools/xtb_single_point.c): not library code.
+$(BUILD)/xtb-single-point: tools/xtb_single_point.c
+	@echo "  CC      $<"
+	@$(CC) $(CFLAGS) $(LDFLAGS) -o $@ $< $(LDLIBS)
 
 deps:
 	@tools/deps.sh

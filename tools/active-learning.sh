@@ -195,8 +195,15 @@ NADIR=${NADIR:-$ROOT/build/nadir}
 [ -x "$NADIR" ] || { echo "active-learning: $NADIR not built (run make)" >&2; exit 1; }
 # A private copy of the program: others may rebuild build/ during a long run.
 cp "$NADIR" "$WORK/bin/nadir.tmp" && mv "$WORK/bin/nadir.tmp" "$WORK/bin/nadir"
-NADIR=$WORK/bin/nadir
+# The compiled reference wrapper built beside it (same answers as
+# tools/xtb-single-point, half the cost per structure), else the script.
 REF=${ND_REFERENCE:-$ROOT/tools/xtb-single-point}
+if [ -z "${ND_REFERENCE:-}" ] && [ -x "$(dirname "$NADIR")/xtb-single-point" ]; then
+  cp "$(dirname "$NADIR")/xtb-single-point" "$WORK/bin/xtb-single-point.tmp"
+  mv "$WORK/bin/xtb-single-point.tmp" "$WORK/bin/xtb-single-point"
+  REF=$WORK/bin/xtb-single-point
+fi
+NADIR=$WORK/bin/nadir
 [ -n "${ND_REFERENCE:-}" ] || ND_DEPS_EXTRA=xtb "$ROOT/tools/deps.sh"
 LOG=$WORK/logs/run.log
 START=$(date +%s)

@@ -142,7 +142,8 @@ interruption and it continues where it stopped.
 
 Environment: ND_DATASET_DIR, ND_DATASET_SEED, ND_DATASET_THREADS as above;
 NADIR (the program, default build/nadir), ND_REFERENCE (the reference command,
-default tools/xtb-single-point).
+default build/xtb-single-point, compiled from tools/xtb_single_point.c,
+when built, else the script tools/xtb-single-point).
 
 examples:
   make dataset
@@ -215,8 +216,15 @@ NADIR=${NADIR:-$ROOT/build/nadir}
 mkdir -p "$WORK/bin"
 [ -x "$NADIR" ] || { echo "make-dataset: $NADIR not built (run make)" >&2; exit 1; }
 cp "$NADIR" "$WORK/bin/nadir.tmp" && mv "$WORK/bin/nadir.tmp" "$WORK/bin/nadir"
-NADIR=$WORK/bin/nadir
+# The compiled reference wrapper built beside it (same answers as
+# tools/xtb-single-point, half the cost per structure), else the script.
 REF=${ND_REFERENCE:-$ROOT/tools/xtb-single-point}
+if [ -z "${ND_REFERENCE:-}" ] && [ -x "$(dirname "$NADIR")/xtb-single-point" ]; then
+  cp "$(dirname "$NADIR")/xtb-single-point" "$WORK/bin/xtb-single-point.tmp"
+  mv "$WORK/bin/xtb-single-point.tmp" "$WORK/bin/xtb-single-point"
+  REF=$WORK/bin/xtb-single-point
+fi
+NADIR=$WORK/bin/nadir
 has() { case ",$1," in *",$2,"*) return 0 ;; esac; return 1; }
 
 # ---------------------------------------------------------------- checks

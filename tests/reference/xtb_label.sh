@@ -76,6 +76,46 @@ assert n == 2, n
 EOF
 then ok "labels match the wrapper and xtb run by hand"; else not_ok "labels match the wrapper and xtb run by hand"; fi
 
+# The compiled wrapper (tools/xtb_single_point.c, built beside nadir) answers
+# with the same doubles as the Python script, and refuses what it refuses.
+WRAPC="$(dirname "$NADIR")/xtb-single-point"
+if [ -x "$WRAPC" ]; then
+  if /usr/bin/python3 - "$T/d.jsonl" "$WRAP" "$WRAPC" <<'EOF'
+import json, subprocess, sys
+path, script, compiled = sys.argv[1:4]
+n = 0
+for line in open(path):
+    d = json.loads(line)
+    if "elements" not in d:
+        continue
+    els, x = d["elements"], d["coordinates"]
+    req = json.dumps({"elements": els, "coordinates": [x[3 * i:3 * i + 3] for i in range(len(els))],
+                      "charge": 0, "multiplicity": 1})
+    a, b = (json.loads(subprocess.run([w], input=req, capture_output=True, text=True, check=True).stdout)
+            for w in (script, compiled))
+    assert a["energy"] == b["energy"] and a["gradient"] == b["gradient"], (d["key"], a, b)
+    assert (a["energy_unit"], a["gradient_unit"]) == (b["energy_unit"], b["gradient_unit"])
+    n += 1
+    good = req
+assert n == 2, n
+bad = ['not json', '{"elements": ["Xx"], "coordinates": [[0, 0, 0]]}',
+       '{"elements": ["H"], "coordinates": [[0, 0, 0]]}',
+       '{"elements": ["H", "H"], "coordinates": [[0, 0, 0], [0, 0, "a"]]}',
+       '{"elements": ["H", "H"], "coordinates": [[0, 0, 0], [0, 0, 0.74]], "coordinate_unit": "bohr"}']
+for req in bad:
+    r = [subprocess.run([w], input=req, capture_output=True, text=True) for w in (script, compiled)]
+    assert r[0].returncode == r[1].returncode == 1 and not r[1].stdout, (req, r[1])
+    what = [x.stderr.split(":")[1].split("[")[0] for x in r]  # the reason, without the echoed input
+    assert what[0] == what[1], (req, r[0].stderr, r[1].stderr)
+r = subprocess.run([compiled, "--xtb", "/nonexistent/xtb"], input=good, capture_output=True, text=True)
+assert r.returncode == 1 and "cannot run '/nonexistent/xtb'" in r.stderr, r
+EOF
+  then ok "the compiled wrapper answers the same doubles and refuses the same requests"
+  else not_ok "the compiled wrapper answers the same doubles and refuses the same requests"; fi
+else
+  not_ok "the compiled wrapper answers the same doubles and refuses the same requests" "$WRAPC not built"
+fi
+
 # Diagnostic, not a check: the same flat structure without the nudge. With
 # xtb 6.5.1 (Debian) the audit refuses it: the x gradient of C and O, which
 # share x exactly, disagrees with the energies by about 12 kcal/mol/A.
