@@ -436,19 +436,27 @@ if has "$STAGES" scans && [ "$(awk -v f="$SCANFRAC" 'BEGIN{print (f > 0)}')" = 1
     D=$WORK/scans/$s.c$CONF.f$SCANFRAC
     [ -f "$D/scans.txt" ] || $PY "$HELP" scan-setup "$G.c$CONF.sdf" "$D" --fraction "$SCANFRAC" --seed "$SEED" 2>>"$LOG"
     # the scans themselves (a relaxation per angle, one core each) run
-    # THREADS at a time; their points are labelled afterwards
+    # THREADS at a time; after every ten, the points of those finished are
+    # labelled, so an interrupted run keeps all but the last few
+    scan_labels() {
+      local key tor b
+      while read -r key tor; do
+        b=$D/$key
+        [ -f "$b.scan.done" ] || continue
+        [ -f "$b.points.xyz" ] || $PY "$HELP" retitle "$b.scan.xyz" "$b.points.xyz"
+        label $s "torsion scan" "$b.points.xyz" "scan.$key.c$CONF.f$SCANFRAC" 0 || true
+      done <"$D/scans.txt"
+    }
+    started=0
     while read -r key tor; do
       [ -f "$D/$key.scan.done" ] && continue
       while [ "$(jobs -rp | wc -l)" -ge "$THREADS" ]; do wait -n || true; done
       scan_one "$s" "$D/$key" "$key" "$tor" &
+      started=$((started + 1))
+      if [ $((started % 10)) = 0 ]; then wait; scan_labels; fi
     done <"$D/scans.txt"
     wait
-    while read -r key tor; do
-      b=$D/$key
-      [ -f "$b.scan.done" ] || continue
-      [ -f "$b.points.xyz" ] || $PY "$HELP" retitle "$b.scan.xyz" "$b.points.xyz"
-      label $s "torsion scan" "$b.points.xyz" "scan.$key.c$CONF.f$SCANFRAC" 0 || true
-    done <"$D/scans.txt"
+    scan_labels
   done
 fi
 
