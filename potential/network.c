@@ -69,35 +69,46 @@ void nd_net_input(const struct nd_model *m, int e, int rows, const double *G, do
     }
 }
 
-/* Adds the bias and applies silu in place: z -> a, and s = silu'(z). The
- * logistic function takes exp(-z) from nd_exp (vectorised; within an ulp
- * of the C library's) with -z capped at 700, where 1 / (1 + e^700) is
- * already below 1e-304. The avx2 clone does the same IEEE operations four
- * at a time instead of two (no fused multiply-add in C11 mode): same bits. */
+/* Applies silu in place (the bias is already in, from the dgemm): z -> a,
+ * and s = silu'(z). The logistic function takes exp(-z) from nd_exp
+ * (vectorised; within an ulp of the C library's) with -z capped at 700,
+ * where 1 / (1 + e^700) is already below 1e-304. The avx2 clone does the
+ * same IEEE operations four at a time instead of two (no fused
+ * multiply-add in C11 mode): same bits. */
 __attribute__((target_clones("avx2", "default"))) static void
-activate(int rows, int nk, int w, const double *bias, double *a, double *s)
+activate(int rows, int nk, int w, double *a, double *s)
 {
-    size_t ld = (size_t)nk * w;
-    for (int r = 0; r < rows; r++) {
-        double *ar = a + (size_t)r * ld, *sr = s + (size_t)r * ld;
+    size_t n = (size_t)rows * (size_t)nk * (size_t)w;
 #pragma omp simd
-        for (size_t c = 0; c < ld; c++) {
-            double z = ar[c] + bias[c];
-            double mz = -z < 700 ? -z : 700;
-            double sg = 1 / (1 + nd_exp(mz));
-            ar[c] = z * sg;
-            sr[c] = sg * (1 + z * (1 - sg));
-        }
+    for (size_t c = 0; c < n; c++) {
+        double z = a[c];
+        double mz = -z < 700 ? -z : 700;
+        double sg = 1 / (1 + nd_exp(mz));
+        a[c] = z * sg;
+        s[c] = sg * (1 + z * (1 - sg));
     }
 }
 
-void nd_net_forward(const struct nd_model *m, int e, int k0, int k1, int rows, const double *a0,
-                    double *work, double *E)
+/* Copies the bias row (len doubles) into each of rows rows of out, so that
+ * the layer's dgemm starts from it (beta = 1): that adds the bias where a
+ * separate pass would add it, in the same operation order (one K block),
+ * and spares the dgemm its zeroing pass over the output. */
+static void start_from_bias(int rows, size_t len, const double *bias, double *out)
+{
+    for (int r = 0; r < rows; r++)
+        memcpy(out + (size_t)r * len, bias, len * sizeof(double));
+}
+
+/* Forward pass with layer 1 given as W1 (nk H1 x D, members stacked) and
+ * b1 (nk H1) applied to a0: the model's own layer on scaled inputs, or the
+ * folded one on raw features. */
+static void forward(const struct nd_model *m, int e, int k0, int k1, int rows, const double *a0,
+                    const double *W1, const double *b1, double *work, double *E)
 {
     const int nk = k1 - k0, L = m->nhidden;
     if (rows <= 0)
         return;
-    double *a[ND_NET_MAX_HIDDEN + 1], *s[ND_NET_MAX_HIDDEN + 1];
+    double *a[ND_NET_MAX_HIDDEN + 1] = {0}, *s[ND_NET_MAX_HIDDEN + 1] = {0};
     double *p = work;
     for (int l = 1; l <= L; l++) {
         size_t sz = (size_t)rows * nk * m->width[l];
@@ -107,16 +118,18 @@ void nd_net_forward(const struct nd_model *m, int e, int k0, int k1, int rows, c
     }
     /* layer 1: all members at once, W1 rows k0*H1 .. k1*H1 */
     int H1 = m->width[1];
-    cblas_dgemm(CblasRowMajor, CblasNoTrans, CblasTrans, rows, nk * H1, m->D, 1.0, a0, m->D,
-                nd_net_weights(m, e, 1, k0), m->D, 0.0, a[1], nk * H1);
-    activate(rows, nk, H1, nd_net_bias(m, e, 1, k0), a[1], s[1]);
+    start_from_bias(rows, (size_t)nk * H1, b1, a[1]);
+    cblas_dgemm(CblasRowMajor, CblasNoTrans, CblasTrans, rows, nk * H1, m->D, 1.0, a0, m->D, W1,
+                m->D, 1.0, a[1], nk * H1);
+    activate(rows, nk, H1, a[1], s[1]);
     for (int l = 2; l <= L; l++) {
         int hin = m->width[l - 1], hout = m->width[l];
+        start_from_bias(rows, (size_t)nk * hout, nd_net_bias(m, e, l, k0), a[l]);
         for (int k = 0; k < nk; k++)
             cblas_dgemm(CblasRowMajor, CblasNoTrans, CblasTrans, rows, hout, hin, 1.0,
                         a[l - 1] + (size_t)k * hin, nk * hin, nd_net_weights(m, e, l, k0 + k), hin,
-                        0.0, a[l] + (size_t)k * hout, nk * hout);
-        activate(rows, nk, hout, nd_net_bias(m, e, l, k0), a[l], s[l]);
+                        1.0, a[l] + (size_t)k * hout, nk * hout);
+        activate(rows, nk, hout, a[l], s[l]);
     }
     int HL = m->width[L];
     for (int r = 0; r < rows; r++) {
@@ -132,8 +145,24 @@ void nd_net_forward(const struct nd_model *m, int e, int k0, int k1, int rows, c
     }
 }
 
-void nd_net_backward(const struct nd_model *m, int e, int k0, int k1, int rows, double coef,
-                     double *work, double *U)
+void nd_net_forward(const struct nd_model *m, int e, int k0, int k1, int rows, const double *a0,
+                    double *work, double *E)
+{
+    forward(m, e, k0, k1, rows, a0, nd_net_weights(m, e, 1, k0), nd_net_bias(m, e, 1, k0), work,
+            E);
+}
+
+void nd_net_forward_folded(const struct nd_model *m, int e, int k0, int k1, int rows,
+                           const double *G, const double *W1, const double *b1, double *work,
+                           double *E)
+{
+    forward(m, e, k0, k1, rows, G, W1, b1, work, E);
+}
+
+/* Backward pass with layer 1 given as W1 (as for forward); sc: the input
+ * scaling to apply to U, or NULL when W1 has it folded in. */
+static void backward(const struct nd_model *m, int e, int k0, int k1, int rows, double coef,
+                     const double *W1, const double *sc, double *work, double *U)
 {
     const int nk = k1 - k0, L = m->nhidden, D = m->D;
     if (rows <= 0)
@@ -175,11 +204,41 @@ void nd_net_backward(const struct nd_model *m, int e, int k0, int k1, int rows, 
     }
     int H1 = m->width[1];
     cblas_dgemm(CblasRowMajor, CblasNoTrans, CblasNoTrans, rows, D, nk * H1, 1.0, cur, nk * H1,
-                nd_net_weights(m, e, 1, k0), D, 0.0, U, D);
-    const double *sc = m->scale + (size_t)e * D;
+                W1, D, 0.0, U, D);
+    if (!sc)
+        return;
     for (int r = 0; r < rows; r++) {
         double *u = U + (size_t)r * D;
         for (int f = 0; f < D; f++)
             u[f] *= sc[f];
+    }
+}
+
+void nd_net_backward(const struct nd_model *m, int e, int k0, int k1, int rows, double coef,
+                     double *work, double *U)
+{
+    backward(m, e, k0, k1, rows, coef, nd_net_weights(m, e, 1, k0), m->scale + (size_t)e * m->D,
+             work, U);
+}
+
+void nd_net_backward_folded(const struct nd_model *m, int e, int k0, int k1, int rows, double coef,
+                            const double *W1, double *work, double *U)
+{
+    backward(m, e, k0, k1, rows, coef, W1, NULL, work, U);
+}
+
+void nd_net_fold_input(const struct nd_model *m, int e, double *W1, double *b1)
+{
+    const int D = m->D, rows = m->nmembers * m->width[1];
+    const double *mu = m->mu + (size_t)e * D, *sc = m->scale + (size_t)e * D;
+    const double *W = nd_net_weights(m, e, 1, 0), *b = nd_net_bias(m, e, 1, 0);
+    for (int h = 0; h < rows; h++) {
+        const double *w = W + (size_t)h * D;
+        double *wf = W1 + (size_t)h * D, shift = 0;
+        for (int f = 0; f < D; f++) {
+            wf[f] = w[f] * sc[f];
+            shift += wf[f] * mu[f];
+        }
+        b1[h] = b[h] - shift;
     }
 }

@@ -92,6 +92,23 @@ void nd_net_forward(const struct nd_model *m, int e, int k0, int k1, int rows, c
 void nd_net_backward(const struct nd_model *m, int e, int k0, int k1, int rows, double coef,
                      double *work, double *U);
 
+/* Layer 1 of every member of element e with the input scaling folded in:
+ * W1 (nmembers * width[1] x D, members stacked as in the model) = W_1
+ * scale_e per column, and b1 (nmembers * width[1]) = b_1 - W1 mu_e, so
+ * that W1 G + b1 = W_1 (scale_e (G - mu_e)) + b_1 to rounding. For the
+ * evaluation of a fixed model: no scaling pass over the inputs per call,
+ * and none over U. */
+void nd_net_fold_input(const struct nd_model *m, int e, double *W1, double *b1);
+
+/* nd_net_forward and nd_net_backward on raw features G (rows x D) with the
+ * folded layer 1 of nd_net_fold_input, offset to member k0 (W1 + k0 *
+ * width[1] * D, b1 + k0 * width[1]). */
+void nd_net_forward_folded(const struct nd_model *m, int e, int k0, int k1, int rows,
+                           const double *G, const double *W1, const double *b1, double *work,
+                           double *E);
+void nd_net_backward_folded(const struct nd_model *m, int e, int k0, int k1, int rows, double coef,
+                            const double *W1, double *work, double *U);
+
 /* silu and its first two derivatives (for tests and the trainer). */
 double nd_net_silu(double z, double *d1, double *d2);
 

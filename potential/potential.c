@@ -6,7 +6,8 @@
  *  2. descriptors, atom-parallel (OpenMP), each written to its row in the
  *     matrix of its element (rows: element, then structure, then atom);
  *  3. the networks, element by element, in chunks of rows: one dgemm per
- *     layer (OpenBLAS), forward then backward to U = dE/dG;
+ *     layer (OpenBLAS), forward then backward to U = dE/dG, with the input
+ *     scaling folded into layer 1 when the potential is made;
  *  4. the contraction F = -J^T U, atom-parallel: each centre writes the
  *     derivative of its own energy (and, for the radial terms of pairs it
  *     owns, of its neighbour's) with respect to itself and to each
@@ -43,7 +44,7 @@ typedef struct workspace {
     int *row;             /* matrix row of each atom of the batch */
     double *G, *U;        /* N x D */
     double *E;            /* N x K atomic energies */
-    double *chunk_a0, *chunk_work, *chunk_e; /* one network chunk per thread */
+    double *chunk_work, *chunk_e; /* one network chunk per thread */
     size_t chunk_work_len;
     double *scr;          /* nthr x cap_scr */
     int *iscr;            /* nthr x cap_nn */
@@ -58,6 +59,7 @@ struct nd_potential {
     int *z, *species;     /* per atom of one structure */
     int count[ND_MODEL_MAX_ELEMENTS], first[ND_MODEL_MAX_ELEMENTS + 1];
     int *rank;            /* index of atom i among the atoms of its element */
+    double *W1[ND_MODEL_MAX_ELEMENTS], *b1[ND_MODEL_MAX_ELEMENTS]; /* folded layer 1, elements present */
     omp_lock_t lock;
     workspace **pool;
     int npool, cap_pool;
@@ -101,6 +103,19 @@ int nd_potential_new(nd_potential **out, const nd_model *model, int n, const int
     p->first[0] = 0;
     for (int e = 0; e < model->nel; e++)
         p->first[e + 1] = p->first[e] + p->count[e];
+    size_t h1 = (size_t)model->nmembers * (size_t)model->width[1];
+    for (int e = 0; e < model->nel; e++) {
+        if (!p->count[e])
+            continue;
+        p->W1[e] = malloc(h1 * (size_t)model->D * sizeof(double));
+        p->b1[e] = malloc(h1 * sizeof(double));
+        if (!p->W1[e] || !p->b1[e]) {
+            omp_init_lock(&p->lock);
+            nd_potential_free(p);
+            return nd_fail(err, ND_ENOMEM, "potential: out of memory");
+        }
+        nd_net_fold_input(model, e, p->W1[e], p->b1[e]);
+    }
     omp_init_lock(&p->lock);
     *out = p;
     return ND_OK;
@@ -117,7 +132,6 @@ static void ws_free(workspace *w)
     free(w->G);
     free(w->U);
     free(w->E);
-    free(w->chunk_a0);
     free(w->chunk_work);
     free(w->chunk_e);
     free(w->scr);
@@ -136,6 +150,10 @@ void nd_potential_free(nd_potential *p)
         ws_free(p->pool[i]);
     free(p->pool);
     omp_destroy_lock(&p->lock);
+    for (int e = 0; e < ND_MODEL_MAX_ELEMENTS; e++) {
+        free(p->W1[e]);
+        free(p->b1[e]);
+    }
     free(p->z);
     free(p->species);
     free(p->rank);
@@ -218,11 +236,10 @@ static int ws_size_pairs(const nd_potential *p, workspace *w, int nthr)
         size_t s = scr > w->cap_scr ? scr : w->cap_scr;
         int c = nn > w->cap_nn ? nn : w->cap_nn;
         const nd_model *m = p->model;
-        size_t D = (size_t)m->D, K = (size_t)m->nmembers;
+        size_t K = (size_t)m->nmembers;
         w->chunk_work_len = nd_net_work_doubles(m, CHUNK_ROWS, (int)K);
         if (resize(&w->scr, (size_t)t * s * sizeof(double)) ||
             resize(&w->iscr, (size_t)t * (size_t)c * sizeof(int)) ||
-            resize(&w->chunk_a0, (size_t)t * CHUNK_ROWS * D * sizeof(double)) ||
             resize(&w->chunk_work, (size_t)t * w->chunk_work_len * sizeof(double)) ||
             resize(&w->chunk_e, (size_t)t * CHUNK_ROWS * K * sizeof(double)))
             return ND_ENOMEM;
@@ -258,7 +275,6 @@ static void network_pass(const nd_potential *p, workspace *w, int ms, int k0, in
 #pragma omp parallel num_threads(w->nrun)
     {
         int t = omp_get_thread_num();
-        double *a0 = w->chunk_a0 + (size_t)t * CHUNK_ROWS * D;
         double *work = w->chunk_work + (size_t)t * w->chunk_work_len;
         double *ec = w->chunk_e + (size_t)t * CHUNK_ROWS * K;
 #pragma omp for schedule(dynamic, 1)
@@ -270,13 +286,14 @@ static void network_pass(const nd_potential *p, workspace *w, int ms, int k0, in
             int r0 = (task - task_e[e]) * CHUNK_ROWS;
             int nr = rows - r0 < CHUNK_ROWS ? rows - r0 : CHUNK_ROWS;
             size_t row = (size_t)ms * p->first[e] + (size_t)r0;
-            nd_net_input(m, e, nr, w->G + row * D, a0);
-            nd_net_forward(m, e, k0, k1, nr, a0, work, ec);
+            size_t h1 = (size_t)k0 * (size_t)m->width[1];
+            const double *W1 = p->W1[e] + h1 * (size_t)D, *b1 = p->b1[e] + h1;
+            nd_net_forward_folded(m, e, k0, k1, nr, w->G + row * D, W1, b1, work, ec);
             for (int r = 0; r < nr; r++)
                 for (int k = 0; k < nk; k++)
                     w->E[(row + (size_t)r) * K + (size_t)(k0 + k)] = ec[(size_t)r * nk + k];
             if (coef != 0)
-                nd_net_backward(m, e, k0, k1, nr, coef, work, w->U + row * D);
+                nd_net_backward_folded(m, e, k0, k1, nr, coef, W1, work, w->U + row * D);
         }
     }
 }

@@ -24,7 +24,8 @@ typedef struct nd_potential nd_potential;
 
 #define ND_POTENTIAL_MEAN (-1) /* mode: mean of all ensemble members */
 
-/* Binds model (which must outlive the potential) to n atoms of atomic
+/* Binds model (which must outlive the potential, unchanged: its input
+ * scaling is folded into a copy of the first layer here) to n atoms of atomic
  * numbers z (copied), with mode ND_POTENTIAL_MEAN or a member index
  * 0 .. K-1. ND_EDOMAIN (naming the atom, element and the model's domain)
  * for an element the model does not cover; ND_EINVAL for a bad mode or n.
