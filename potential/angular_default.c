@@ -48,14 +48,29 @@ typedef struct nbrs {
     double *r, *ux, *uy, *uz, *e0, *e4, *d0, *d4, *extra;
 } nbrs;
 
+/* Points the 8 rows of b (stride b->stride) into buf. */
+static void bind_rows(nbrs *b, double *buf)
+{
+    size_t st = b->stride;
+    b->r = buf;
+    b->ux = buf + st;
+    b->uy = buf + 2 * st;
+    b->uz = buf + 3 * st;
+    b->e0 = buf + 4 * st;
+    b->e4 = buf + 5 * st;
+    b->d0 = buf + 6 * st;
+    b->d4 = buf + 7 * st;
+}
+
+/* Fills b, its 8 rows in rows (room for 8 nn doubles), slot in iscratch;
+ * r2: nn doubles of temporary space apart from rows. b->extra is left for
+ * the caller. */
 static void setup(const nd_descriptor_params *p, int nel, const double *x, const int *species,
-                  int i, const int *nbr, int nn, double *scratch, int *iscratch, nbrs *b)
+                  int i, const int *nbr, int nn, double *rows, double *r2, int *iscratch, nbrs *b)
 {
     const double rca = p->angular_cutoff, rca2 = rca * rca;
     const double eta0 = p->angular_eta[0], eta4 = p->angular_eta[4];
     const double *xi = x + 3 * (size_t)i;
-    /* r^2 by nbr position, until sorted: beyond the 8 rows of any stride */
-    double *r2 = scratch + 8 * (size_t)(nn > 0 ? nn : 1);
     int pos[ND_DESC_MAX_ELEMENTS + 1] = {0};
     for (int s = 0; s < nn; s++) {
         const double *xj = x + 3 * (size_t)nbr[s];
@@ -74,10 +89,9 @@ static void setup(const nd_descriptor_params *p, int nel, const double *x, const
     size_t st = (size_t)(b->cnt > 0 ? b->cnt : 1);
     b->stride = st;
     b->slot = iscratch;
-    double *r = b->r = scratch, *ux = b->ux = r + st, *uy = b->uy = ux + st;
-    double *uz = b->uz = uy + st, *e0 = b->e0 = uz + st, *e4 = b->e4 = e0 + st;
-    double *d0 = b->d0 = e4 + st, *d4 = b->d4 = d0 + st;
-    b->extra = d4 + st;
+    bind_rows(b, rows);
+    double *r = b->r, *ux = b->ux, *uy = b->uy, *uz = b->uz;
+    double *e0 = b->e0, *e4 = b->e4, *d0 = b->d0, *d4 = b->d4;
     for (int s = 0; s < nn; s++) {
         if (!(r2[s] < rca2))
             continue;
@@ -108,13 +122,99 @@ static void setup(const nd_descriptor_params *p, int nel, const double *x, const
     }
 }
 
-__attribute__((target_clones("avx2", "default"))) void
-nd_angular_default_features(const nd_descriptor_params *p, int nel, const double *x,
-                            const int *species, int i, const int *nbr, int nn, double *GA,
-                            double *scratch, int *iscratch)
+/* The scratch-only set-up: rows at the start of scratch, r^2 after the 8
+ * rows of any stride, the rest after the rows. */
+static void setup_in_scratch(const nd_descriptor_params *p, int nel, const double *x,
+                             const int *species, int i, const int *nbr, int nn, double *scratch,
+                             int *iscratch, nbrs *b)
+{
+    setup(p, nel, x, species, i, nbr, nn, scratch, scratch + 8 * (size_t)(nn > 0 ? nn : 1),
+          iscratch, b);
+    b->extra = scratch + 8 * b->stride;
+}
+
+/* The set-up into kept rows (8 rows, then slot as doubles), scratch free. */
+static void setup_kept(const nd_descriptor_params *p, int nel, const double *x, const int *species,
+                       int i, const int *nbr, int nn, double *scratch, int *iscratch,
+                       nd_angular_kept *kept, double *rows, nbrs *b)
+{
+    setup(p, nel, x, species, i, nbr, nn, rows, scratch, iscratch, b);
+    b->extra = scratch;
+    double *slot = rows + 8 * b->stride;
+    for (int q = 0; q < b->cnt; q++)
+        slot[q] = b->slot[q];
+    kept->cnt = b->cnt;
+    kept->npresent = b->npresent;
+    memcpy(kept->block, b->block, sizeof kept->block);
+    memcpy(kept->present, b->present, sizeof kept->present);
+}
+
+/* b from a kept set-up; slot back into iscratch. */
+static void from_kept(const nd_angular_kept *kept, const double *rows, double *scratch,
+                      int *iscratch, nbrs *b)
+{
+    b->cnt = kept->cnt;
+    b->npresent = kept->npresent;
+    memcpy(b->block, kept->block, sizeof b->block);
+    memcpy(b->present, kept->present, sizeof b->present);
+    b->stride = (size_t)(b->cnt > 0 ? b->cnt : 1);
+    bind_rows(b, (double *)rows); /* read only from here on */
+    const double *slot = rows + 8 * b->stride;
+    for (int q = 0; q < b->cnt; q++)
+        iscratch[q] = (int)slot[q];
+    b->slot = iscratch;
+    b->extra = scratch;
+}
+
+static void features(int nel, const nbrs *bp, double *GA);
+static void grad(int nel, const nbrs *bp, const double *UA, double *gj);
+
+void nd_angular_default_features(const nd_descriptor_params *p, int nel, const double *x,
+                                 const int *species, int i, const int *nbr, int nn, double *GA,
+                                 double *scratch, int *iscratch)
 {
     nbrs b;
-    setup(p, nel, x, species, i, nbr, nn, scratch, iscratch, &b);
+    setup_in_scratch(p, nel, x, species, i, nbr, nn, scratch, iscratch, &b);
+    features(nel, &b, GA);
+}
+
+void nd_angular_default_features_keep(const nd_descriptor_params *p, int nel, const double *x,
+                                      const int *species, int i, const int *nbr, int nn,
+                                      double *GA, double *scratch, int *iscratch,
+                                      nd_angular_kept *kept, double *rows)
+{
+    nbrs b;
+    setup_kept(p, nel, x, species, i, nbr, nn, scratch, iscratch, kept, rows, &b);
+    features(nel, &b, GA);
+}
+
+void nd_angular_default_grad(const nd_descriptor_params *p, int nel, const double *x,
+                             const int *species, int i, const int *nbr, int nn, const double *UA,
+                             double *gj, double *scratch, int *iscratch)
+{
+    nbrs b;
+    setup_in_scratch(p, nel, x, species, i, nbr, nn, scratch, iscratch, &b);
+    grad(nel, &b, UA, gj);
+}
+
+void nd_angular_default_grad_kept(const nd_descriptor_params *p, int nel, const double *x,
+                                  const int *species, int i, const int *nbr, int nn,
+                                  const double *UA, double *gj, double *scratch, int *iscratch,
+                                  const nd_angular_kept *kept, const double *rows)
+{
+    nbrs b;
+    if (kept && kept->cnt >= 0)
+        from_kept(kept, rows, scratch, iscratch, &b);
+    else
+        setup_in_scratch(p, nel, x, species, i, nbr, nn, scratch, iscratch, &b);
+    grad(nel, &b, UA, gj);
+}
+
+/* The feature sums of a set-up centre. */
+__attribute__((target_clones("avx2", "default"))) static void
+features(int nel, const nbrs *bp, double *GA)
+{
+    const nbrs b = *bp;
     const int cnt = b.cnt, np = b.npresent;
     const size_t st = b.stride;
     const double *ux = b.ux, *uy = b.uy, *uz = b.uz;
@@ -158,13 +258,11 @@ nd_angular_default_features(const nd_descriptor_params *p, int nel, const double
     }
 }
 
-__attribute__((target_clones("avx2", "default"))) void
-nd_angular_default_grad(const nd_descriptor_params *p, int nel, const double *x,
-                        const int *species, int i, const int *nbr, int nn, const double *UA,
-                        double *gj, double *scratch, int *iscratch)
+/* The gradient contraction of a set-up centre. */
+__attribute__((target_clones("avx2", "default"))) static void
+grad(int nel, const nbrs *bp, const double *UA, double *gj)
 {
-    nbrs b;
-    setup(p, nel, x, species, i, nbr, nn, scratch, iscratch, &b);
+    const nbrs b = *bp;
     const int cnt = b.cnt, np = b.npresent;
     const size_t st = b.stride;
     const double *ux = b.ux, *uy = b.uy, *uz = b.uz, *e0 = b.e0, *e4 = b.e4;

@@ -44,6 +44,19 @@ void nd_angular_default_features(const nd_descriptor_params *p, int nel, const d
                                  const int *species, int i, const int *nbr, int nn, double *GA,
                                  double *scratch, int *iscratch);
 
+/* nd_angular_default_features that keeps its set-up in kept and rows
+ * (room for ND_DESC_KEPT_ROWS * nn doubles) for nd_angular_default_grad_kept. */
+void nd_angular_default_features_keep(const nd_descriptor_params *p, int nel, const double *x,
+                                      const int *species, int i, const int *nbr, int nn,
+                                      double *GA, double *scratch, int *iscratch,
+                                      nd_angular_kept *kept, double *rows);
+
+/* nd_angular_default_grad from a kept set-up (same bits). */
+void nd_angular_default_grad_kept(const nd_descriptor_params *p, int nel, const double *x,
+                                  const int *species, int i, const int *nbr, int nn,
+                                  const double *UA, double *gj, double *scratch, int *iscratch,
+                                  const nd_angular_kept *kept, const double *rows);
+
 /* Adds d(UA . GA_i)/dx_j to gj (3 per neighbour, nbr order) for the angular
  * weights UA (the angular part of u = dE/dG_i). The centre's own term is
  * minus their sum, which the caller forms. */

@@ -464,9 +464,13 @@ static inline double radial_dedr(const nd_descriptor_params *p, const radial_gri
     return dfc * s0 - 2 * grid->eta * fc * s1;
 }
 
-void nd_descriptor_atom(const nd_descriptor_params *p, int nel, const double *x, const int *species,
-                        int i, const int *nbr, int nn, double *G, double *dscratch, int *iscratch)
+/* nd_descriptor_atom, keeping the angular set-up when kept is not NULL. */
+static void atom_features(const nd_descriptor_params *p, int nel, const double *x,
+                          const int *species, int i, const int *nbr, int nn, double *G,
+                          double *dscratch, int *iscratch, nd_angular_kept *kept, double *rows)
 {
+    if (kept)
+        kept->cnt = -1;
     const int nr = p->nradial, na = p->nangular;
     const int D = nd_descriptor_size(p, nel);
     memset(G, 0, sizeof(double) * (size_t)D);
@@ -479,7 +483,11 @@ void nd_descriptor_atom(const nd_descriptor_params *p, int nel, const double *x,
         return;
     double *GA = G + (size_t)nel * nr;
     if (nd_angular_is_default(p)) {
-        nd_angular_default_features(p, nel, x, species, i, nbr, nn, GA, dscratch, iscratch);
+        if (kept)
+            nd_angular_default_features_keep(p, nel, x, species, i, nbr, nn, GA, dscratch,
+                                             iscratch, kept, rows);
+        else
+            nd_angular_default_features(p, nel, x, species, i, nbr, nn, GA, dscratch, iscratch);
         return;
     }
     double *geo = dscratch, *e = geo + 4 * (size_t)nn, *de = e + (size_t)nn * na;
@@ -513,7 +521,20 @@ void nd_descriptor_atom(const nd_descriptor_params *p, int nel, const double *x,
     }
 }
 
-/* Shared body of the two contraction calls. With U == NULL, the radial
+void nd_descriptor_atom(const nd_descriptor_params *p, int nel, const double *x, const int *species,
+                        int i, const int *nbr, int nn, double *G, double *dscratch, int *iscratch)
+{
+    atom_features(p, nel, x, species, i, nbr, nn, G, dscratch, iscratch, NULL, NULL);
+}
+
+void nd_descriptor_atom_keep(const nd_descriptor_params *p, int nel, const double *x,
+                             const int *species, int i, const int *nbr, int nn, double *G,
+                             double *dscratch, int *iscratch, nd_angular_kept *kept, double *rows)
+{
+    atom_features(p, nel, x, species, i, nbr, nn, G, dscratch, iscratch, kept, rows);
+}
+
+/* Shared body of the contraction calls. With U == NULL, the radial
  * term of every pair uses u (the row of atom i). With U (rows of all atoms,
  * row[atom] their row, D features), the radial terms of the pair (i, j) for
  * both centres are done here when i < j, from the one set of Gaussians, and
@@ -521,7 +542,7 @@ void nd_descriptor_atom(const nd_descriptor_params *p, int nel, const double *x,
 static void atom_grad(const nd_descriptor_params *p, int nel, const double *x, const int *species,
                       int i, const int *nbr, int nn, const double *u, const double *U,
                       const int *row, int D, double *gi, double *gj, double *dscratch,
-                      int *iscratch)
+                      int *iscratch, const nd_angular_kept *kept, const double *rows)
 {
     const int nr = p->nradial, na = p->nangular;
     if (nn > 0)
@@ -547,8 +568,8 @@ static void atom_grad(const nd_descriptor_params *p, int nel, const double *x, c
         gj[3 * s + 2] = dedr * rp.uz[q];
     }
     if (na > 0 && nd_angular_is_default(p)) {
-        nd_angular_default_grad(p, nel, x, species, i, nbr, nn, u + (size_t)nel * nr, gj,
-                                dscratch, iscratch);
+        nd_angular_default_grad_kept(p, nel, x, species, i, nbr, nn, u + (size_t)nel * nr, gj,
+                                     dscratch, iscratch, kept, rows);
     } else if (na > 0) {
         /* scratch: geometry, e, de, tmp, then per angular neighbour the sums
          * {sum B, sum A u_other (3), sum A c}, then the per-pair-kind weights */
@@ -618,7 +639,8 @@ void nd_descriptor_atom_grad(const nd_descriptor_params *p, int nel, const doubl
                              const int *species, int i, const int *nbr, int nn, const double *u,
                              double *gi, double *gj, double *dscratch, int *iscratch)
 {
-    atom_grad(p, nel, x, species, i, nbr, nn, u, NULL, NULL, 0, gi, gj, dscratch, iscratch);
+    atom_grad(p, nel, x, species, i, nbr, nn, u, NULL, NULL, 0, gi, gj, dscratch, iscratch, NULL,
+              NULL);
 }
 
 void nd_descriptor_atom_grad_shared(const nd_descriptor_params *p, int nel, const double *x,
@@ -627,7 +649,17 @@ void nd_descriptor_atom_grad_shared(const nd_descriptor_params *p, int nel, cons
                                     double *gj, double *dscratch, int *iscratch)
 {
     atom_grad(p, nel, x, species, i, nbr, nn, U + (size_t)row[i] * D, U, row, D, gi, gj, dscratch,
-              iscratch);
+              iscratch, NULL, NULL);
+}
+
+void nd_descriptor_atom_grad_kept(const nd_descriptor_params *p, int nel, const double *x,
+                                  const int *species, int i, const int *nbr, int nn,
+                                  const double *U, const int *row, int D, double *gi, double *gj,
+                                  double *dscratch, int *iscratch, const nd_angular_kept *kept,
+                                  const double *rows)
+{
+    atom_grad(p, nel, x, species, i, nbr, nn, U + (size_t)row[i] * D, U, row, D, gi, gj, dscratch,
+              iscratch, kept, rows);
 }
 
 /* Forward-mode tangent v_i = sum_k J_ik r_k (see descriptor.h). Since G_i

@@ -150,6 +150,35 @@ void nd_descriptor_atom_grad_shared(const nd_descriptor_params *p, int nel, cons
                                     const double *U, const int *row, int D, double *gi,
                                     double *gj, double *dscratch, int *iscratch);
 
+/* The angular set-up of one centre (its neighbours inside the angular
+ * cutoff: distances, unit vectors, cutoff-weighted exponentials), kept by
+ * the feature pass for the gradient pass at the same coordinates. Only for
+ * the default angular sets (nd_angular_is_default); cnt < 0: nothing kept.
+ * Its rows, ND_DESC_KEPT_ROWS * max(cnt, 1) doubles, live in a buffer the
+ * caller owns. */
+#define ND_DESC_KEPT_ROWS 9
+typedef struct nd_angular_kept {
+    int cnt, npresent;
+    int block[ND_DESC_MAX_ELEMENTS + 1];
+    int present[ND_DESC_MAX_ELEMENTS];
+} nd_angular_kept;
+
+/* nd_descriptor_atom that also keeps the angular set-up in kept and rows
+ * (room for ND_DESC_KEPT_ROWS * nn doubles; kept->cnt says how many rows
+ * of it are used, -1 when the sets are not the default ones). */
+void nd_descriptor_atom_keep(const nd_descriptor_params *p, int nel, const double *x,
+                             const int *species, int i, const int *nbr, int nn, double *G,
+                             double *dscratch, int *iscratch, nd_angular_kept *kept, double *rows);
+
+/* nd_descriptor_atom_grad_shared from the set-up kept by
+ * nd_descriptor_atom_keep at the same coordinates (kept NULL or cnt < 0:
+ * computed again). The same bits either way. */
+void nd_descriptor_atom_grad_kept(const nd_descriptor_params *p, int nel, const double *x,
+                                  const int *species, int i, const int *nbr, int nn,
+                                  const double *U, const int *row, int D, double *gi, double *gj,
+                                  double *dscratch, int *iscratch, const nd_angular_kept *kept,
+                                  const double *rows);
+
 /* Directional derivative of the features (used by the trainer's exact
  * force-loss gradient; see POTENTIAL.md): for atom i and a displacement
  * field r (3 numbers per atom, indexed like x), writes

@@ -8,7 +8,8 @@
  *  3. the networks, element by element, in chunks of rows: one dgemm per
  *     layer (OpenBLAS), forward then backward to U = dE/dG, with the input
  *     scaling folded into layer 1 when the potential is made;
- *  4. the contraction F = -J^T U, atom-parallel: each centre writes the
+ *  4. the contraction F = -J^T U, atom-parallel (from the angular set-up
+ *     that stage 2 kept when a gradient is wanted): each centre writes the
  *     derivative of its own energy (and, for the radial terms of pairs it
  *     owns, of its neighbour's) with respect to itself and to each
  *     neighbour into its own per-pair slots; the slots are then added up
@@ -51,6 +52,14 @@ typedef struct workspace {
     double *pairg;        /* 3 per pair */
     double *selfg;        /* 3 per atom */
     double *gbuf;         /* 3 per atom: one member's gradient of a batch */
+    /* the angular set-up of each atom, kept from the descriptor pass for
+     * the contraction: its record, and where its rows are (a per-thread
+     * arena, grown as needed, and an offset into it) */
+    nd_angular_kept *kept;
+    int *kept_arena;
+    size_t *kept_off;
+    double **arena;
+    size_t *arena_cap, *arena_used;
 } workspace;
 
 struct nd_potential {
@@ -139,6 +148,14 @@ static void ws_free(workspace *w)
     free(w->pairg);
     free(w->selfg);
     free(w->gbuf);
+    free(w->kept);
+    free(w->kept_arena);
+    free(w->kept_off);
+    for (int t = 0; t < w->nthr && w->arena; t++)
+        free(w->arena[t]);
+    free(w->arena);
+    free(w->arena_cap);
+    free(w->arena_used);
     free(w);
 }
 
@@ -220,7 +237,8 @@ static int ws_size_atoms(const nd_potential *p, workspace *w, int N)
     if (resize(&w->species, n * sizeof(int)) || resize(&w->row, n * sizeof(int)) ||
         resize(&w->G, n * D * sizeof(double)) || resize(&w->U, n * D * sizeof(double)) ||
         resize(&w->E, n * K * sizeof(double)) || resize(&w->selfg, 3 * n * sizeof(double)) ||
-        resize(&w->gbuf, 3 * n * sizeof(double)))
+        resize(&w->gbuf, 3 * n * sizeof(double)) || resize(&w->kept, n * sizeof *w->kept) ||
+        resize(&w->kept_arena, n * sizeof(int)) || resize(&w->kept_off, n * sizeof(size_t)))
         return ND_ENOMEM;
     w->cap_n = N;
     return ND_OK;
@@ -241,8 +259,15 @@ static int ws_size_pairs(const nd_potential *p, workspace *w, int nthr)
         if (resize(&w->scr, (size_t)t * s * sizeof(double)) ||
             resize(&w->iscr, (size_t)t * (size_t)c * sizeof(int)) ||
             resize(&w->chunk_work, (size_t)t * w->chunk_work_len * sizeof(double)) ||
-            resize(&w->chunk_e, (size_t)t * CHUNK_ROWS * K * sizeof(double)))
+            resize(&w->chunk_e, (size_t)t * CHUNK_ROWS * K * sizeof(double)) ||
+            resize(&w->arena, (size_t)t * sizeof(double *)) ||
+            resize(&w->arena_cap, (size_t)t * sizeof(size_t)) ||
+            resize(&w->arena_used, (size_t)t * sizeof(size_t)))
             return ND_ENOMEM;
+        for (int k = w->nthr; k < t; k++) {
+            w->arena[k] = NULL;
+            w->arena_cap[k] = 0;
+        }
         w->nthr = t;
         w->cap_scr = s;
         w->cap_nn = c;
@@ -298,6 +323,23 @@ static void network_pass(const nd_potential *p, workspace *w, int ms, int k0, in
     }
 }
 
+/* Rows for the kept angular set-up of an atom with nn neighbours in thread
+ * t's arena (grown when short), or NULL if out of memory: the atom's set-up
+ * is then not kept, only computed again. */
+static double *arena_rows(workspace *w, int t, int nn)
+{
+    size_t need = ND_DESC_KEPT_ROWS * (size_t)(nn > 0 ? nn : 1);
+    if (w->arena_cap[t] - w->arena_used[t] < need) {
+        size_t cap = 2 * w->arena_cap[t];
+        if (cap < w->arena_used[t] + need)
+            cap = w->arena_used[t] + need;
+        if (resize(&w->arena[t], cap * sizeof(double)))
+            return NULL;
+        w->arena_cap[t] = cap;
+    }
+    return w->arena[t] + w->arena_used[t];
+}
+
 /* Contraction: gradient of sum_i U_i . G_i for every atom of the batch into
  * g (N x 3). */
 static void contract(const nd_potential *p, workspace *w, const double *x, double *g)
@@ -313,10 +355,12 @@ static void contract(const nd_potential *p, workspace *w, const double *x, doubl
 #pragma omp for schedule(dynamic, 64)
         for (int a = 0; a < N; a++) {
             int s0 = nb->start[a];
-            nd_descriptor_atom_grad_shared(&m->desc, m->nel, x, w->species, a, nb->list + s0,
-                                           nb->start[a + 1] - s0, w->U, w->row, D,
-                                           w->selfg + 3 * (size_t)a, w->pairg + 3 * (size_t)s0,
-                                           scr, iscr);
+            const nd_angular_kept *k = w->kept[a].cnt >= 0 ? &w->kept[a] : NULL;
+            const double *rows = k ? w->arena[w->kept_arena[a]] + w->kept_off[a] : NULL;
+            nd_descriptor_atom_grad_kept(&m->desc, m->nel, x, w->species, a, nb->list + s0,
+                                         nb->start[a + 1] - s0, w->U, w->row, D,
+                                         w->selfg + 3 * (size_t)a, w->pairg + 3 * (size_t)s0, scr,
+                                         iscr, k, rows);
         }
     }
     /* gather: each atom's own term, then the pair terms in pair order (a
@@ -392,11 +436,24 @@ static int compute_batch(nd_potential *p, workspace *w, int ms, int first, const
         int t = omp_get_thread_num();
         double *scr = w->scr + (size_t)t * w->cap_scr;
         int *iscr = w->iscr + (size_t)t * w->cap_nn;
+        w->arena_used[t] = 0;
 #pragma omp for schedule(dynamic, 64)
         for (int a = 0; a < N; a++) {
-            int s0 = nb->start[a];
-            nd_descriptor_atom(&m->desc, m->nel, x, w->species, a, nb->list + s0,
-                               nb->start[a + 1] - s0, w->G + (size_t)w->row[a] * D, scr, iscr);
+            int s0 = nb->start[a], nn = nb->start[a + 1] - s0;
+            double *rows = grad || member_grad ? arena_rows(w, t, nn) : NULL;
+            w->kept[a].cnt = -1;
+            if (rows) {
+                nd_descriptor_atom_keep(&m->desc, m->nel, x, w->species, a, nb->list + s0, nn,
+                                        w->G + (size_t)w->row[a] * D, scr, iscr, &w->kept[a], rows);
+                w->kept_arena[a] = t;
+                w->kept_off[a] = w->arena_used[t];
+                if (w->kept[a].cnt >= 0)
+                    w->arena_used[t] +=
+                        ND_DESC_KEPT_ROWS * (size_t)(w->kept[a].cnt > 0 ? w->kept[a].cnt : 1);
+            } else {
+                nd_descriptor_atom(&m->desc, m->nel, x, w->species, a, nb->list + s0, nn,
+                                   w->G + (size_t)w->row[a] * D, scr, iscr);
+            }
         }
     }
     /* stage 3 and 4 */

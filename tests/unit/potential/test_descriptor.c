@@ -246,7 +246,8 @@ static void test_gradient_fd(void **state)
 }
 
 /* The shared-radial contraction gives, summed over all atoms, the same
- * gradient as the per-atom one (to rounding). */
+ * gradient as the per-atom one (to rounding); from a kept angular set-up it
+ * gives the same bits as without. */
 static void test_shared_contraction(void **state)
 {
     (void)state;
@@ -260,6 +261,7 @@ static void test_shared_contraction(void **state)
     random_cluster(&r, n, 4.5, nel, x, sp);
     int D = nd_descriptor_size(&p, nel);
     double *U = malloc(sizeof(double) * (size_t)(n * D));
+    double *G0 = malloc(sizeof(double) * (size_t)D), *Gk = malloc(sizeof(double) * (size_t)D);
     for (int i = 0; i < n * D; i++)
         U[i] = nd_rng_normal(&r);
     for (int i = 0; i < n; i++)
@@ -286,10 +288,23 @@ static void test_shared_contraction(void **state)
         for (int s = 0; s < nn; s++)
             for (int k = 0; k < 3; k++)
                 g2[3 * nbr[s] + k] += gj[3 * s + k];
+        /* from the angular set-up kept by the feature call: the same bits */
+        nd_angular_kept kept;
+        double rows[ND_DESC_KEPT_ROWS * 16], gk[3], gjk[3 * 16];
+        nd_descriptor_atom(&p, nel, x, sp, i, nbr, nn, G0, scr, iscr);
+        nd_descriptor_atom_keep(&p, nel, x, sp, i, nbr, nn, Gk, scr, iscr, &kept, rows);
+        assert_true(kept.cnt >= 0);
+        assert_memory_equal(Gk, G0, sizeof(double) * (size_t)D);
+        nd_descriptor_atom_grad_kept(&p, nel, x, sp, i, nbr, nn, U, row, D, gk, gjk, scr, iscr,
+                                     &kept, rows);
+        assert_memory_equal(gk, gi, sizeof gk);
+        assert_memory_equal(gjk, gj, sizeof(double) * 3 * (size_t)nn);
     }
     for (int i = 0; i < 3 * n; i++)
         assert_close(g2[i], g1[i], 1e-12 * (1 + fabs(g1[i])));
     free(U);
+    free(G0);
+    free(Gk);
     free(scr);
 }
 
