@@ -317,10 +317,12 @@ radial_setup(const nd_descriptor_params *p, const radial_grid *grid, const doubl
     int cnt = 0;
     for (int s = 0; s < nn; s++) {
         int j = nbr[s];
+        if (skip_lower && j < i) /* before the distance: half the pairs */
+            continue;
         const double *xj = x + 3 * (size_t)j;
         double dx = xj[0] - xi[0], dy = xj[1] - xi[1], dz = xj[2] - xi[2];
         double r2 = dx * dx + dy * dy + dz * dz;
-        if (r2 >= rc2 || (skip_lower && j < i))
+        if (r2 >= rc2)
             continue;
         idx[cnt] = s;
         r[cnt] = sqrt(r2);
@@ -429,39 +431,47 @@ static inline void radial_add(const nd_descriptor_params *p, const radial_grid *
 }
 
 /* sum_m w_m d(g_m fc)/dr = sum_m w_m g_m (fc' - 2 eta_m (r - s_m) fc) for
- * pair q; for a uniform grid, with one eta, as fc' S0 - 2 eta fc S1 from
- * the sums S0 = sum w g and S1 = sum w g (r - s) along the recurrence. */
-static inline double radial_dedr(const nd_descriptor_params *p, const radial_grid *grid,
-                                 const radial_pairs *rp, int q, const double *w)
+ * pair q, with w_m = wa_m + wb_m when two (the weights of both centres of
+ * a shared pair, added here instead of in a pass of their own), else wa_m;
+ * for a uniform grid, with one eta, as fc' S0 - 2 eta fc S1 from the sums
+ * S0 = sum w g and S1 = sum w g (r - s) along the recurrence. Inlined with
+ * two a constant. */
+static inline __attribute__((always_inline)) double
+radial_dedr(const nd_descriptor_params *p, const radial_grid *grid, const radial_pairs *rp, int q,
+            const double *wa, const double *wb, int two)
 {
+#define W(m) (two ? wa[m] + wb[m] : wa[m])
     const int nr = p->nradial;
     const double *shift = p->radial_shift, r = rp->r[q], fc = rp->fc[q], dfc = rp->dfc[q];
     if (!grid->uniform) {
         double g[ND_DESC_MAX_RADIAL], dedr = 0;
         radial_values(p, grid, rp, q, g);
         for (int m = 0; m < nr; m++)
-            dedr += w[m] * g[m] * (dfc - 2 * p->radial_eta[m] * (r - shift[m]) * fc);
+            dedr += W(m) * g[m] * (dfc - 2 * p->radial_eta[m] * (r - shift[m]) * fc);
         return dedr;
     }
     const double kappa = grid->kappa;
     int c = (int)rp->cq[q];
-    double gc = rp->g0[q], gm = gc, rho = rp->up[q];
-    double s0 = w[c] * gc, s1 = w[c] * gc * (r - shift[c]);
+    double gc = rp->g0[q], gm = gc, rho = rp->up[q], wc = W(c);
+    double s0 = wc * gc, s1 = wc * gc * (r - shift[c]);
     for (int m = c + 1; m < nr; m++) {
         gm *= rho;
         rho *= kappa;
-        s0 += w[m] * gm;
-        s1 += w[m] * gm * (r - shift[m]);
+        double wm = W(m);
+        s0 += wm * gm;
+        s1 += wm * gm * (r - shift[m]);
     }
     gm = gc;
     rho = rp->dn[q];
     for (int m = c - 1; m >= 0; m--) {
         gm *= rho;
         rho *= kappa;
-        s0 += w[m] * gm;
-        s1 += w[m] * gm * (r - shift[m]);
+        double wm = W(m);
+        s0 += wm * gm;
+        s1 += wm * gm * (r - shift[m]);
     }
     return dfc * s0 - 2 * grid->eta * fc * s1;
+#undef W
 }
 
 /* nd_descriptor_atom, keeping the angular set-up when kept is not NULL. */
@@ -554,15 +564,9 @@ static void atom_grad(const nd_descriptor_params *p, int nel, const double *x, c
         int s = rp.idx[q], j = nbr[s];
         const double *ui = u + (size_t)species[j] * nr;
         /* the weights of the pair's Gaussians: for both centres when shared */
-        double w[ND_DESC_MAX_RADIAL];
-        if (U) {
-            const double *uj = U + (size_t)row[j] * D + (size_t)species[i] * nr;
-            for (int m = 0; m < nr; m++)
-                w[m] = ui[m] + uj[m];
-        } else {
-            memcpy(w, ui, sizeof(double) * (size_t)nr);
-        }
-        double dedr = radial_dedr(p, &grid, &rp, q, w);
+        double dedr = U ? radial_dedr(p, &grid, &rp, q, ui,
+                                      U + (size_t)row[j] * D + (size_t)species[i] * nr, 1)
+                        : radial_dedr(p, &grid, &rp, q, ui, NULL, 0);
         gj[3 * s + 0] = dedr * rp.ux[q];
         gj[3 * s + 1] = dedr * rp.uy[q];
         gj[3 * s + 2] = dedr * rp.uz[q];
