@@ -150,16 +150,29 @@ int nd_evaluate_dataset(const nd_model *model, const nd_dataset *data, nd_evalua
     {
         double me[ND_MODEL_MAX_MEMBERS];
         nd_error e1;
+        /* the thread's potential, kept while the structures have the same
+         * atoms (a dataset lists the structures of a molecule together):
+         * making one folds the model's first layer and sizes workspaces */
+        nd_potential *p = NULL;
+        const int *pz = NULL;
+        int pn = -1;
 #pragma omp for schedule(dynamic, 4)
         for (long i = 0; i < ns; i++) {
             nd_dataset_entry e;
             nd_dataset_get(data, i, &e);
             const int n = e.natoms;
-            nd_potential *p = NULL;
             double *mg = NULL;
             int st = nd_model_check_atoms(model, n, e.z, e.charge, &e1);
-            if (st == ND_OK)
+            if (st == ND_OK && !(p && pn == n && !memcmp(pz, e.z, (size_t)n * sizeof(int)))) {
+                nd_potential_free(p);
+                p = NULL;
+                pn = -1;
                 st = nd_potential_new(&p, model, n, e.z, ND_POTENTIAL_MEAN, &e1);
+                if (st == ND_OK) {
+                    pz = e.z;
+                    pn = n;
+                }
+            }
             if (st == ND_OK && K > 1 &&
                 !(mg = malloc((size_t)K * 3 * (size_t)n * sizeof(double))))
                 st = nd_fail(&e1, ND_ENOMEM, "out of memory");
@@ -193,8 +206,8 @@ int nd_evaluate_dataset(const nd_model *model, const nd_dataset *data, nd_evalua
                 }
             }
             free(mg);
-            nd_potential_free(p);
         }
+        nd_potential_free(p);
     }
     /* 2. the figures, in structure order */
     double ea = 0, eq = 0, aa = 0, aq = 0, fa = 0, fq = 0;
