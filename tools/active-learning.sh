@@ -341,7 +341,8 @@ grep -h "audit: " "$WORK/logs/label.log" 2>/dev/null | tail -n "$AUDIT" | sed 's
 say "done in $(( $(date +%s) - START )) s"
 }
 
-# The whole run is one function, read before it starts, so editing this file
-# while a run is going does not disturb it.
-main "$@"
-exit $?
+# The whole run is one function, read before it starts, and the exit is on
+# the same line as the call (bash reads on from its old offset once the
+# function returns: a separate line after an edit could be any text), so
+# editing this file while a run is going does not disturb it.
+main "$@"; exit $?

@@ -470,7 +470,8 @@ fi
 say "done in $(( $(date +%s) - START )) s; datasets in $WORK"
 }
 
-# The whole run is one function, read before it starts, so editing this file
-# while a run is going does not disturb it.
-main "$@"
-exit $?
+# The whole run is one function, read before it starts, and the exit is on
+# the same line as the call (bash reads on from its old offset once the
+# function returns: a separate line after an edit could be any text), so
+# editing this file while a run is going does not disturb it.
+main "$@"; exit $?
