@@ -88,7 +88,7 @@ $(BUILD)/tests/$(1)/%: tests/unit/$(1)/%.c $(TESTLIB) $(call modlib,$(1))
 endef
 $(foreach m,core potential optimize conformers,$(eval $(call unit_rule,$(m))))
 
-tests: $(UNIT_BIN) $(BUILD)/nadir
+tests: $(UNIT_BIN) $(BUILD)/nadir $(BUILD)/xtb-single-point
 
 # One module's unit tests only: make unit M=optimize
 unit: deps
