@@ -55,6 +55,12 @@
 #   relaxation (L-BFGS, Lindh preconditioner, xtb as the potential): median
 #     28 steps, 40 single points, 3.8 s per conformer (40 in 152 s)
 #   torsion scan, 12 angles relaxed: ~300 single points, ~30 s (small)
+# Measured in the full run (2 cores, other work beside it at times; the
+# summary's table): with the compiled wrapper (build/xtb-single-point)
+#   thermal labels 0.058 s each (51,840 in 50 min, 2 at a time), against
+#   0.15-0.3 s through the Python script; a torsion scan 60-120 s, not
+#   ~30 s (12 relaxations of ~25 steps each), so the scans of 6% of the
+#   training molecules (99) take ~1.5 hours on 2 cores
 # Full run with the defaults (per small training molecule: 8 conformers, 8
 # torsion-varied, 40 thermal, one relaxation path giving ~7 frames + the
 # minimum + 2 near it, a scan on 6% of molecules: ~67 structures; per
