@@ -332,6 +332,11 @@ for stage in "$@"; do
         [ -f "$G.c$CONF.th$TH_CONF.xyz" ] || $PY "$HELP" thermal "$G.c$CONF.xyz" "$G.c$CONF.th$TH_CONF.xyz" \
             --per-structure "$TH_CONF" --seed "$SEED" 2>>"$LOG"
         label $s thermal "$G.c$CONF.th$TH_CONF.xyz" "thermal.n$nm.c$CONF.th$TH_CONF"
+        # the torsion-varied shapes are regenerated (seeded, the same) when
+        # this stage runs without the torsions stage on a new machine; they
+        # were skipped silently before
+        [ -f "$G.c$CONF.t$TORS.xyz" ] || [ "$TORS" -le 0 ] || $PY "$HELP" torsions "$G.c$CONF.sdf" \
+            "$G.c$CONF.t$TORS.xyz" --per-molecule "$TORS" --seed "$SEED" 2>>"$LOG"
         if [ -f "$G.c$CONF.t$TORS.xyz" ]; then
           [ -f "$G.c$CONF.t$TORS.th$TH_TORS.xyz" ] || $PY "$HELP" thermal "$G.c$CONF.t$TORS.xyz" \
               "$G.c$CONF.t$TORS.th$TH_TORS.xyz" --per-structure "$TH_TORS" --seed "$SEED" 2>>"$LOG"
