@@ -56,6 +56,12 @@ static void usage(FILE *f)
             "  --batch N                structures per minibatch (default %d)\n"
             "  --force-weight W         weight of the force term of the loss (default %g;\n"
             "                           0 trains on energies only)\n"
+            "  --energy-window E        weigh the energies of structures more than E\n"
+            "                           kcal/mol above their molecule's lowest by\n"
+            "                           (E/excess)^2, so the fit favours the low-energy\n"
+            "                           shapes conformer ranking needs; the validation\n"
+            "                           relative error then counts those within E\n"
+            "                           (default 0: every energy weighs alike)\n"
             "  --validation-fraction F  fraction of the molecules held out (default %g)\n"
             "  --learning-rate R        initial Adam step (default %g)\n"
             "  --learning-rate-floor R  the rate never halves below R (default %g)\n"
@@ -145,7 +151,8 @@ static int parse_layers(const char *s, nd_train_config *c)
 static int parse(int argc, char **argv, train_options *o)
 {
     enum { O_ELEM = 256, O_LAYERS, O_MEMBERS, O_EPOCHS, O_BATCH, O_FW, O_VF, O_LR, O_LRF, O_PAT,
-           O_RPAT, O_WD, O_SEED, O_THREADS, O_STATE, O_RESUME, O_SKIP, O_CACHE, O_QUIET, O_START };
+           O_RPAT, O_WD, O_SEED, O_THREADS, O_STATE, O_RESUME, O_SKIP, O_CACHE, O_QUIET, O_START,
+           O_EW };
     static const struct option longopts[] = {{"output", required_argument, NULL, 'o'},
                                               {"elements", required_argument, NULL, O_ELEM},
                                               {"layers", required_argument, NULL, O_LAYERS},
@@ -153,6 +160,7 @@ static int parse(int argc, char **argv, train_options *o)
                                               {"epochs", required_argument, NULL, O_EPOCHS},
                                               {"batch", required_argument, NULL, O_BATCH},
                                               {"force-weight", required_argument, NULL, O_FW},
+                                              {"energy-window", required_argument, NULL, O_EW},
                                               {"validation-fraction", required_argument, NULL, O_VF},
                                               {"learning-rate", required_argument, NULL, O_LR},
                                               {"learning-rate-floor", required_argument, NULL, O_LRF},
@@ -220,11 +228,13 @@ static int parse(int argc, char **argv, train_options *o)
             break;
         }
         case O_FW:
+        case O_EW:
         case O_VF:
         case O_LR:
         case O_LRF:
         case O_WD: {
-            const char *name = c == O_FW ? "--force-weight" : c == O_VF ? "--validation-fraction"
+            const char *name = c == O_FW ? "--force-weight" : c == O_EW ? "--energy-window"
+                             : c == O_VF ? "--validation-fraction"
                              : c == O_LR ? "--learning-rate" : c == O_LRF ? "--learning-rate-floor"
                                                                           : "--weight-decay";
             if (cli_parse_double(optarg, &v) < 0 || !isfinite(v) || v < 0)
@@ -235,6 +245,8 @@ static int parse(int argc, char **argv, train_options *o)
                 return cli_usage(CMD, "--validation-fraction must be below 1");
             if (c == O_FW)
                 o->cfg.force_weight = v;
+            else if (c == O_EW)
+                o->cfg.energy_window = v;
             else if (c == O_VF)
                 o->cfg.validation_fraction = v;
             else if (c == O_LR)

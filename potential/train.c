@@ -156,6 +156,7 @@ typedef struct job {
     int k;                   /* member */
     const nd_dataset *d;
     weights wt;
+    const double *sw;        /* per-structure energy weights (dataset index), or NULL: all 1 */
     int want_forces;         /* compute forces of structures that have reference forces */
     double *grad;            /* member-vector gradient to add to, or NULL */
     double *pred_e;          /* per structure of the chunk, or NULL */
@@ -273,16 +274,16 @@ static int chunk_run(cws *w, const job *jb, const long *idx, int ns, sums *out, 
         if (!isfinite(E))
             return nd_fail(err, ND_ECOMPUTE, "train: non-finite energy for structure %ld",
                            idx[s] + 1);
-        double dE = E - e.energy;
+        double dE = E - e.energy, ce = jb->wt.ce * (jb->sw ? jb->sw[idx[s]] : 1.0);
         if (jb->pred_e)
             jb->pred_e[s] = E;
-        out->loss += jb->wt.ce * dE * dE / n;
+        out->loss += ce * dE * dE / n;
         out->e_abs += fabs(dE);
         out->e_sq += dE * dE;
         out->ne++;
         if (jb->grad)
             for (int i = 0; i < n; i++)
-                w->cE[w->row[b + i]] = 2 * jb->wt.ce * dE / n;
+                w->cE[w->row[b + i]] = 2 * ce * dE / n;
         for (int i = 0; i < n; i++)
             w->cT[w->row[b + i]] = 0;
         if (!hasf[s])
@@ -579,6 +580,7 @@ struct nd_train {
     size_t P;
     long ntrain, nval, nval_atoms;
     long *train_idx, *val_idx, *val_off, *val_low, *order;
+    double *sw;                             /* energy weights per structure, or NULL */
     int ntrain_mol, nval_mol;
     double *theta, *best, *am, *av, *grad; /* K x P each (grad: P) */
     member *mem;
@@ -646,6 +648,7 @@ void nd_train_free(nd_train *t)
     free(t->val_idx);
     free(t->val_off);
     free(t->val_low);
+    free(t->sw);
     free(t->order);
     free(t->theta);
     free(t->best);
@@ -661,6 +664,47 @@ void nd_train_free(nd_train *t)
 }
 
 /* Range checks of the settings. */
+int nd_train_energy_weights(const nd_dataset *d, double window, const unsigned char *mask,
+                            double *w)
+{
+    long n = nd_dataset_count(d);
+    int nk = nd_dataset_key_count(d);
+    if (!(window > 0)) {
+        for (long s = 0; s < n; s++)
+            w[s] = 1;
+        return ND_OK;
+    }
+    double *low = malloc((size_t)(nk > 0 ? nk : 1) * sizeof(double));
+    if (!low)
+        return ND_ENOMEM;
+    for (int q = 0; q < nk; q++)
+        low[q] = INFINITY;
+    for (long s = 0; s < n; s++) {
+        nd_dataset_entry e;
+        nd_dataset_get(d, s, &e);
+        int q = nd_dataset_key_index(d, s);
+        if (e.energy < low[q])
+            low[q] = e.energy;
+    }
+    double sum = 0;
+    long cnt = 0;
+    for (long s = 0; s < n; s++) {
+        nd_dataset_entry e;
+        nd_dataset_get(d, s, &e);
+        double above = e.energy - low[nd_dataset_key_index(d, s)];
+        w[s] = above <= window ? 1.0 : (window / above) * (window / above);
+        if (!mask || mask[s]) {
+            sum += w[s];
+            cnt++;
+        }
+    }
+    free(low);
+    double mean = cnt ? sum / (double)cnt : 1.0;
+    for (long s = 0; s < n; s++)
+        w[s] /= mean;
+    return ND_OK;
+}
+
 static int check_config(const nd_train_config *c, nd_error *err)
 {
     if (c->members < 1 || c->members > ND_MODEL_MAX_MEMBERS)
@@ -687,6 +731,9 @@ static int check_config(const nd_train_config *c, nd_error *err)
     if (!(c->weight_decay >= 0) || !isfinite(c->weight_decay))
         return nd_fail(err, ND_EINPUT, "train: weight decay %g, expected 0 or more",
                        c->weight_decay);
+    if (!(c->energy_window >= 0) || !isfinite(c->energy_window))
+        return nd_fail(err, ND_EINPUT, "train: energy window %g kcal/mol, expected 0 or more",
+                       c->energy_window);
     if (c->nelements < 0 || c->nelements > ND_MODEL_SPEC_MAX_ELEMENTS)
         return nd_fail(err, ND_EINPUT, "train: %d elements requested", c->nelements);
     return ND_OK;
@@ -798,6 +845,8 @@ static uint64_t fingerprint(const nd_train *t)
     h = hash_long(h, c->lr_patience);
     h = hash_long(h, c->stop_patience);
     h = hash_double(h, c->weight_decay);
+    if (c->energy_window > 0) /* only when set: older checkpoints keep their fingerprint */
+        h = hash_double(h, c->energy_window);
     h = nd_model_fnv1a64(h, &c->seed, sizeof c->seed);
     h = hash_long(h, t->ntrain);
     for (long s = 0; s < t->ntrain; s++) {
@@ -974,7 +1023,7 @@ static void valid_errors(const nd_train *t, const double *pe, const double *pf, 
         double dE = pe[j] - e.energy;
         ea += fabs(dE);
         es += dE * dE;
-        loss += dE * dE / e.natoms;
+        loss += (t->sw ? t->sw[t->val_idx[j]] : 1.0) * dE * dE / e.natoms;
         if (e.forces)
             for (int c = 0; c < 3 * e.natoms; c++) {
                 double r = pf[t->val_off[j] + c] - e.forces[c];
@@ -986,6 +1035,8 @@ static void valid_errors(const nd_train *t, const double *pe, const double *pf, 
         if (lo != j) {
             nd_dataset_entry l;
             nd_dataset_get(t->d, t->val_idx[lo], &l);
+            if (t->cfg.energy_window > 0 && e.energy - l.energy > t->cfg.energy_window)
+                continue;
             ra += fabs((pe[j] - pe[lo]) - (e.energy - l.energy));
             nr++;
         }
@@ -1097,6 +1148,20 @@ int nd_train_new(nd_train **out, const nd_dataset *data, const char *data_name,
         if ((s = split(t, err)) || (s = fit_offsets(t, err)) || (s = fit_scaling(t, err)))
             goto fail;
     }
+    if (t->cfg.energy_window > 0) {
+        long n = nd_dataset_count(data);
+        unsigned char *mask = calloc((size_t)n, 1);
+        t->sw = malloc((size_t)n * sizeof(double));
+        if (mask && t->sw)
+            for (long q = 0; q < t->ntrain; q++)
+                mask[t->train_idx[q]] = 1;
+        int bad = !mask || !t->sw || nd_train_energy_weights(data, t->cfg.energy_window, mask, t->sw);
+        free(mask);
+        if (bad) {
+            s = nd_fail(err, ND_ENOMEM, "train: out of memory");
+            goto fail;
+        }
+    }
     t->K = t->cfg.members;
     t->P = nd_train_member_doubles(t->model);
     size_t KP = (size_t)t->K * t->P;
@@ -1183,6 +1248,7 @@ static int member_epoch(nd_train *t, int k, nd_train_errors *tr, nd_error *err)
         jb.d = t->d;
         jb.wt.ce = 1.0 / (double)n;
         jb.wt.cf = C > 0 ? t->cfg.force_weight / (double)C : 0;
+        jb.sw = t->sw;
         jb.want_forces = t->cfg.force_weight > 0;
         jb.grad = t->grad;
         sums tot;
@@ -1414,6 +1480,8 @@ static char *state_header(const nd_train *t)
     cJSON_AddNumberToObject(o, "seed", (double)t->cfg.seed);
     cJSON_AddNumberToObject(o, "batch", t->cfg.batch);
     cJSON_AddNumberToObject(o, "force_weight", t->cfg.force_weight);
+    if (t->cfg.energy_window > 0)
+        cJSON_AddNumberToObject(o, "energy_window", t->cfg.energy_window);
     char *s = cJSON_PrintUnformatted(o);
     cJSON_Delete(o);
     return s;
@@ -1646,6 +1714,8 @@ int nd_train_model(const nd_train *t, nd_model **out, nd_error *err)
         cJSON_AddItemToArray(be, cJSON_CreateNumber(t->mem[k].best_epoch));
     cJSON_AddNumberToObject(tr, "batch", t->cfg.batch);
     cJSON_AddNumberToObject(tr, "force_weight", t->cfg.force_weight);
+    if (t->cfg.energy_window > 0)
+        cJSON_AddNumberToObject(tr, "energy_window", t->cfg.energy_window);
     cJSON_AddNumberToObject(tr, "learning_rate", t->cfg.learning_rate);
     cJSON_AddNumberToObject(tr, "learning_rate_floor", t->cfg.min_learning_rate);
     cJSON_AddNumberToObject(tr, "weight_decay", t->cfg.weight_decay);

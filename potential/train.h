@@ -9,10 +9,11 @@
  *    standardised per element (mean and standard deviation over the
  *    training atoms), before the networks see any data;
  *  - the loss of a minibatch B of structures is
- *      L = (1/|B|) sum_s (E_s - E_s^ref)^2 / n_s
+ *      L = (1/|B|) sum_s w_s (E_s - E_s^ref)^2 / n_s
  *        + lambda_F (1/C) sum_{s, k} |F_sk - F_sk^ref|^2    (C: force components in B)
  *      + (weight_decay / 2) |theta|^2,
- *    in kcal/mol and angstrom; its gradient in the weights is exact, the
+ *    in kcal/mol and angstrom, where w_s = 1 unless an energy window W is
+ *    set (see nd_train_energy_weights); its gradient in the weights is exact, the
  *    force term by forward-mode tangents (potential/net_tangent.h,
  *    potential/descriptor.h: nd_descriptor_atom_tangent);
  *  - Adam (D. P. Kingma and J. Ba, "Adam: a method for stochastic
@@ -62,6 +63,7 @@ typedef struct nd_train_config {
     int epochs;                             /* at most this many epochs: 200 */
     int batch;                              /* structures per minibatch: 32 */
     double force_weight;                    /* lambda_F: 1 */
+    double energy_window;                   /* W, kcal/mol: 0 (every energy weighs alike) */
     double validation_fraction;             /* of the molecules: 0.1 (0: no validation) */
     double learning_rate;                   /* 1e-3 */
     double min_learning_rate;               /* 1e-5 */
@@ -83,6 +85,20 @@ typedef struct nd_train_config {
 
 void nd_train_config_defaults(nd_train_config *c);
 
+/* Energy weights of the loss for an energy window W > 0 (kcal/mol): with
+ * dE_s the reference energy of structure s above the lowest one of its
+ * molecule (key), w_s = 1 for dE_s <= W and (W / dE_s)^2 beyond, then all
+ * divided by their mean over the structures mask marks (the training set),
+ * so the energy term keeps its overall size. Why: the datasets of
+ * tools/make-dataset.sh hold mostly thermal displacements 20-80 kcal/mol
+ * above the minimum, whose total energies would otherwise dominate the fit,
+ * while conformer ranking needs the lowest few kcal/mol (weighting the
+ * low-energy region is common practice, no source). W <= 0: all weights 1.
+ * w has nd_dataset_count(d) entries; mask may be NULL (all structures).
+ * Returns ND_OK or ND_ENOMEM. */
+int nd_train_energy_weights(const nd_dataset *d, double window, const unsigned char *mask,
+                            double *w);
+
 /* Errors of a set of structures (kcal/mol, kcal/mol/angstrom); NaN where
  * there is nothing to measure (no forces, no molecule with two structures). */
 typedef struct nd_train_errors {
@@ -91,7 +107,8 @@ typedef struct nd_train_errors {
     double energy_rmse;
     double force_mae;     /* per component */
     double force_rmse;
-    double relative_mae;  /* energies from each molecule's lowest reference structure */
+    double relative_mae;  /* energies from each molecule's lowest reference structure (with an
+                           * energy window, of the structures within it) */
 } nd_train_errors;
 
 /* What one epoch did. */

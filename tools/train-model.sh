@@ -46,6 +46,9 @@ basis), evaluates it on the held-out sets and records provenance and status.
                       from a well-trained model may take a smaller one)
   --force-weight W    weight of the force term of the loss (default: nadir
                       train's, 1; smaller weights the energies more)
+  --energy-window E   weigh down the energies of structures more than E
+                      kcal/mol above their molecule's lowest (nadir train
+                      --energy-window; default: every energy alike)
   --resume            continue an interrupted run of the same NAME
   --help              this text
 EOF
@@ -54,7 +57,7 @@ EOF
 [ $# -ge 1 ] || { usage >&2; exit 2; }
 case "$1" in -h|--help) usage; exit 0 ;; -*) echo "train-model: NAME first (see --help)" >&2; exit 2 ;; esac
 NAME=$1; shift
-WORK=$ROOT/data/dataset EXTRA=() LAYERS="" MEMBERS=4 EPOCHS=100 SEED=1 THREADS=2 START="" RESUME="" RATE="" FWEIGHT=""
+WORK=$ROOT/data/dataset EXTRA=() LAYERS="" MEMBERS=4 EPOCHS=100 SEED=1 THREADS=2 START="" RESUME="" RATE="" FWEIGHT="" EWINDOW=""
 while [ $# -gt 0 ]; do
   case "$1" in
     --resume) RESUME=--resume; shift; continue ;;
@@ -72,6 +75,7 @@ while [ $# -gt 0 ]; do
     --start-from) START=$2 ;;
     --learning-rate) RATE=$2 ;;
     --force-weight) FWEIGHT=$2 ;;
+    --energy-window) EWINDOW=$2 ;;
     *) echo "train-model: unknown option '$1' (see --help)" >&2; exit 2 ;;
   esac
   shift 2
@@ -100,6 +104,7 @@ opts=(--members "$MEMBERS" --epochs "$EPOCHS" --seed "$SEED" --threads "$THREADS
 if [ -n "$START" ]; then opts=(--start-from "$START" --epochs "$EPOCHS" --seed "$SEED" --threads "$THREADS" --cache); fi
 [ -n "$RATE" ] && opts+=(--learning-rate "$RATE")
 [ -n "$FWEIGHT" ] && opts+=(--force-weight "$FWEIGHT")
+[ -n "$EWINDOW" ] && opts+=(--energy-window "$EWINDOW")
 MODEL=$OUT/$NAME.model
 say "nadir train ${opts[*]} $RESUME"
 "$NADIR" train "$DATA" -o "$MODEL" "${opts[@]}" $RESUME 2> >(tee -a "$OUT/train.log" >&2) | tee -a "$OUT/run.log"

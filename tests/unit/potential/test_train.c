@@ -493,6 +493,75 @@ static void test_resume_refused(void **state)
     remove(spath);
 }
 
+/* Energy weights of an energy window (worked by hand): molecule a at 0, 2,
+ * 20 and 40 kcal/mol above its lowest, b at 0 and 10; window 5 gives raw
+ * weights 1, 1, (5/20)^2, (5/40)^2 and 1, (5/10)^2, divided by their mean. */
+static void test_energy_window(void **state)
+{
+    (void)state;
+    static const double E[6] = {-100, -98, -80, -60, 5, 15};
+    static const double raw[6] = {1, 1, 0.0625, 0.015625, 1, 0.25};
+    text t = {0};
+    text_add(&t, "{\"dataset\": \"nadir\", \"version\": 1}\n");
+    for (int s = 0; s < 6; s++) {
+        char line[512];
+        snprintf(line, sizeof line,
+                 "{\"key\": \"%s\", \"elements\": [\"O\", \"H\", \"H\"], \"coordinates\": [0, 0, "
+                 "0.117, 0, 0.757, -0.469, 0, -0.757, %.3f], \"energy\": %g}\n",
+                 s < 4 ? "a" : "b", -0.469 - 0.01 * s, E[s]);
+        text_add(&t, line);
+    }
+    const char *path = nd_test_write_temp(t.s, ".jsonl");
+    free(t.s);
+    nd_dataset *d = load(path);
+    assert_int_equal(nd_dataset_count(d), 6);
+    double w[6];
+    assert_int_equal(nd_train_energy_weights(d, 5.0, NULL, w), ND_OK);
+    double mean = 0;
+    for (int s = 0; s < 6; s++)
+        mean += raw[s] / 6;
+    for (int s = 0; s < 6; s++)
+        assert_close(w[s], raw[s] / mean, 1e-14);
+    /* the mean is taken over the marked (training) structures only */
+    unsigned char mask[6] = {1, 1, 1, 1, 0, 0};
+    assert_int_equal(nd_train_energy_weights(d, 5.0, mask, w), ND_OK);
+    double ma = (raw[0] + raw[1] + raw[2] + raw[3]) / 4;
+    for (int s = 0; s < 6; s++)
+        assert_close(w[s], raw[s] / ma, 1e-14);
+    /* no window: all alike */
+    assert_int_equal(nd_train_energy_weights(d, 0.0, NULL, w), ND_OK);
+    for (int s = 0; s < 6; s++)
+        assert_true(w[s] == 1.0);
+    /* a window is part of the settings a checkpoint must match, and a
+     * negative one is refused */
+    nd_train_config c;
+    small_config(&c);
+    c.validation_fraction = 0;
+    c.epochs = 1;
+    c.energy_window = 5;
+    char spath[4096];
+    snprintf(spath, sizeof spath, "%s", nd_test_write_temp("", ".state"));
+    nd_train *tr;
+    nd_error err;
+    assert_int_equal(nd_train_new(&tr, d, path, &c, &err), ND_OK);
+    nd_train_epoch_report rep;
+    int st = nd_train_epoch(tr, &rep, &err);
+    assert_true(st == ND_OK || st == ND_CONTINUE);
+    assert_true(isfinite(rep.train.loss));
+    assert_int_equal(nd_train_save_state(tr, spath, &err), ND_OK);
+    nd_train_free(tr);
+    c.energy_window = 0;
+    assert_int_equal(nd_train_new(&tr, d, path, &c, &err), ND_OK);
+    assert_int_equal(nd_train_load_state(tr, spath, &err), ND_EINPUT);
+    assert_contains(err.msg, "another dataset or other settings");
+    nd_train_free(tr);
+    c.energy_window = -1;
+    assert_int_equal(nd_train_new(&tr, d, path, &c, &err), ND_EINPUT);
+    assert_contains(err.msg, "energy window");
+    nd_dataset_free(d);
+    remove(spath);
+}
+
 /* Offsets by least squares: with energies exactly sum_e n_e e0_e, the fit
  * gives back e0 (to rounding), and the untrained networks then only add
  * their small outputs. Compositions of the generator's molecules are not
@@ -711,6 +780,7 @@ int main(void)
         cmocka_unit_test(test_offsets),
         cmocka_unit_test(test_rejects),
         cmocka_unit_test(test_early_stop),
+        cmocka_unit_test(test_energy_window),
         
     };
     /* one thread unless a test asks for more: the suite shares the cores */
