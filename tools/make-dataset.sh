@@ -28,6 +28,12 @@
 #              structure scale in [0.5, 1.3]; the size of thermal motion at
 #              300-600 K, common practice, no source); after relax, so that an
 #              interrupted run has the near-minimum structures first
+#   inversion  basis set only: umbrella inversion paths of the amines of
+#              tools/molecules/inversion.smi (tools/dataset/inversion.py: the
+#              nitrogen from its pyramid through planar to inverted, 13
+#              steps, each also with 4 small displacements), from the
+#              reference method's own minimum; without them the model never
+#              saw a planar amine nitrogen
 #   scans      relaxed torsion scans (nadir optimize --scan, xtb single points)
 #              of one rotatable bond on a seeded fraction of the molecules
 #   summary    counts, element counts, energy and force ranges (summary.json),
@@ -104,7 +110,8 @@ interruption and it continues where it stopped.
   --threads N          single points run at a time (default 2; env ND_DATASET_THREADS)
   --sets LIST          which sets, of train,test,large,basis (default all
                        four; pilot: train,test)
-  --stages LIST        of conformers,torsions,thermal,relax,scans,summary (default all)
+  --stages LIST        of conformers,torsions,thermal,relax,inversion,scans,
+                       summary (default all)
   --train-molecules N  use the first N training molecules of the split (0: all)
   --test-molecules N   the first N held-out molecules (0: all)
   --large-molecules N  the first N larger molecules (0: all)
@@ -163,11 +170,11 @@ main() {
 WORK=${ND_DATASET_DIR:-}
 SEED=${ND_DATASET_SEED:-1}
 THREADS=${ND_DATASET_THREADS:-}
-SETS="" STAGES="conformers,torsions,thermal,relax,scans,summary"
+SETS="" STAGES="conformers,torsions,thermal,relax,inversion,scans,summary"
 NTRAIN="" NTEST="" NLARGE=""
 CONF="" TORS="" TH_CONF="" TH_TORS="" RELAX="" RELAX_TEST="" RELAX_LARGE="" EVERY=5 TH_MIN="" SCANFRAC="" AUDIT=3
 AUDIT_STAGES=conformers,torsions,thermal,relax SCANSTEP=30 SMALL=$ROOT/tools/molecules/small.smi LARGE=$ROOT/tools/molecules/large.smi TESTFRAC=0.1
-BASIS=$ROOT/tools/molecules/basis.smi
+BASIS=$ROOT/tools/molecules/basis.smi INVERSION=$ROOT/tools/molecules/inversion.smi
 PILOT=0 STORE=""
 while [ $# -gt 0 ]; do
   case "$1" in
@@ -426,6 +433,22 @@ EOF
 fi
 
 generated thermal
+
+# ---------------------------------------------------------------- inversion
+if has "$STAGES" inversion && has "$SETS" basis; then
+  D=$WORK/gen/inversion rc=0
+  mkdir -p "$D"
+  [ -s "$D/built.sdf" ] || "$NADIR" build "$INVERSION" -o "$D/built.sdf" --seed "$SEED" 2>>"$LOG" || rc=$?
+  if [ $rc = 0 ] && [ ! -s "$D/minima.xyz" ]; then
+    "$NADIR" optimize "$D/built.sdf" --potential-command "$REF" -o "$D/minima.xyz" \
+        </dev/null >"$D/optimize.log" 2>&1 || rc=$?
+    [ $rc = 5 ] && { say "inversion: some minima not converged, see $D/optimize.log"; rc=0; }
+  fi
+  [ $rc = 0 ] && { [ -s "$D/paths.xyz" ] || $PY "$ROOT/tools/dataset/inversion.py" "$D/minima.xyz" "$D/paths.xyz" \
+      --seed "$SEED" 2>>"$LOG" || rc=$?; }
+  if [ $rc = 0 ]; then label basis "inversion path" "$D/paths.xyz" inversion || true
+  else say "inversion stage failed (exit $rc), see $LOG"; fi
+fi
 
 # ---------------------------------------------------------------- scans
 # One relaxed torsion scan (nadir optimize --scan, xtb single points) of
