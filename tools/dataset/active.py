@@ -414,8 +414,8 @@ def cmd_report(args):
                                                      100 * x["within_one_spread"], 100 * x["within_two_spreads"]))
     if held:
         lines.append("  the model's held-out figures, for comparison: force MAE %.3f, relative energy MAE %.3f (%s)"
-                     % (held.get("force_mae_kcal_per_mol_per_angstrom", float("nan")),
-                        held.get("relative_energy_mae_kcal_per_mol", float("nan")), held.get("dataset", "")))
+                     % (held.get("force_mae", float("nan")), held.get("relative_mae", float("nan")),
+                        "%s, %s molecules" % (held.get("set", "?"), held.get("molecules", "?"))))
     text = "\n".join(lines) + "\n"
     sys.stdout.write(text)
     write_atomic(os.path.join(work, "summary.json"), json.dumps(s, indent=1) + "\n")
