@@ -1,10 +1,13 @@
-/* Per-element networks: forward and backward passes as one dgemm per layer
- * over all atoms of an element. See network.h for the layout.
+/* Per-element networks: forward and backward passes as one matrix product
+ * per layer over all atoms of an element (OpenBLAS's dgemm, or for chunks
+ * of few rows the kernels of small_gemm.c). See network.h for the layout.
  *
  * -fno-trapping-math lets GCC vectorise the activation loop (nd_exp has
  * comparisons); it changes no result. */
 #pragma GCC optimize("no-trapping-math")
 #include "potential/network.h"
+
+#include "potential/small_gemm.h"
 
 #include <cblas.h>
 #include <math.h>
@@ -89,6 +92,32 @@ activate(int rows, int nk, int w, double *a, double *s)
     }
 }
 
+/* C (m x n) = A (m x k) B^T + beta C, B n x k (a layer's weights, stored
+ * output by input): OpenBLAS for tall chunks, small_gemm.c's kernel for
+ * chunks of few rows (where OpenBLAS spends as long packing the weights as
+ * multiplying). The choice depends on m only: the same rows give the same
+ * bits at any thread count. beta is 0 or 1. */
+static void gemm_nt(int m, int n, int k, const double *A, int lda, const double *B, int ldb,
+                    double beta, double *C, int ldc)
+{
+    if (m <= ND_SMALL_GEMM_MAX_ROWS)
+        nd_small_gemm_nt(m, n, k, A, lda, B, ldb, beta != 0, C, ldc);
+    else
+        cblas_dgemm(CblasRowMajor, CblasNoTrans, CblasTrans, m, n, k, 1.0, A, lda, B, ldb, beta, C,
+                    ldc);
+}
+
+/* C (m x n) = A (m x k) B + beta C, B k x n; as gemm_nt. */
+static void gemm_nn(int m, int n, int k, const double *A, int lda, const double *B, int ldb,
+                    double beta, double *C, int ldc)
+{
+    if (m <= ND_SMALL_GEMM_MAX_ROWS)
+        nd_small_gemm_nn(m, n, k, A, lda, B, ldb, beta != 0, C, ldc);
+    else
+        cblas_dgemm(CblasRowMajor, CblasNoTrans, CblasNoTrans, m, n, k, 1.0, A, lda, B, ldb, beta,
+                    C, ldc);
+}
+
 /* Copies the bias row (len doubles) into each of rows rows of out, so that
  * the layer's dgemm starts from it (beta = 1): that adds the bias where a
  * separate pass would add it, in the same operation order (one K block),
@@ -119,16 +148,14 @@ static void forward(const struct nd_model *m, int e, int k0, int k1, int rows, c
     /* layer 1: all members at once, W1 rows k0*H1 .. k1*H1 */
     int H1 = m->width[1];
     start_from_bias(rows, (size_t)nk * H1, b1, a[1]);
-    cblas_dgemm(CblasRowMajor, CblasNoTrans, CblasTrans, rows, nk * H1, m->D, 1.0, a0, m->D, W1,
-                m->D, 1.0, a[1], nk * H1);
+    gemm_nt(rows, nk * H1, m->D, a0, m->D, W1, m->D, 1.0, a[1], nk * H1);
     activate(rows, nk, H1, a[1], s[1]);
     for (int l = 2; l <= L; l++) {
         int hin = m->width[l - 1], hout = m->width[l];
         start_from_bias(rows, (size_t)nk * hout, nd_net_bias(m, e, l, k0), a[l]);
         for (int k = 0; k < nk; k++)
-            cblas_dgemm(CblasRowMajor, CblasNoTrans, CblasTrans, rows, hout, hin, 1.0,
-                        a[l - 1] + (size_t)k * hin, nk * hin, nd_net_weights(m, e, l, k0 + k), hin,
-                        1.0, a[l] + (size_t)k * hout, nk * hout);
+            gemm_nt(rows, hout, hin, a[l - 1] + (size_t)k * hin, nk * hin,
+                    nd_net_weights(m, e, l, k0 + k), hin, 1.0, a[l] + (size_t)k * hout, nk * hout);
         activate(rows, nk, hout, a[l], s[l]);
     }
     int HL = m->width[L];
@@ -191,9 +218,8 @@ static void backward(const struct nd_model *m, int e, int k0, int k1, int rows, 
     for (int l = L; l >= 2; l--) {
         int hin = m->width[l - 1], hout = m->width[l];
         for (int k = 0; k < nk; k++)
-            cblas_dgemm(CblasRowMajor, CblasNoTrans, CblasNoTrans, rows, hin, hout, 1.0,
-                        cur + (size_t)k * hout, nk * hout, nd_net_weights(m, e, l, k0 + k), hin,
-                        0.0, nxt + (size_t)k * hin, nk * hin);
+            gemm_nn(rows, hin, hout, cur + (size_t)k * hout, nk * hout,
+                    nd_net_weights(m, e, l, k0 + k), hin, 0.0, nxt + (size_t)k * hin, nk * hin);
         size_t n = (size_t)rows * nk * hin;
         const double *sl = s[l - 1];
         for (size_t c = 0; c < n; c++)
@@ -203,8 +229,7 @@ static void backward(const struct nd_model *m, int e, int k0, int k1, int rows, 
         nxt = t;
     }
     int H1 = m->width[1];
-    cblas_dgemm(CblasRowMajor, CblasNoTrans, CblasNoTrans, rows, D, nk * H1, 1.0, cur, nk * H1,
-                W1, D, 0.0, U, D);
+    gemm_nn(rows, D, nk * H1, cur, nk * H1, W1, D, 0.0, U, D);
     if (!sc)
         return;
     for (int r = 0; r < rows; r++) {

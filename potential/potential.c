@@ -5,9 +5,12 @@
  *  1. neighbour lists (cell lists) within the largest cutoff;
  *  2. descriptors, atom-parallel (OpenMP), each written to its row in the
  *     matrix of its element (rows: element, then structure, then atom);
- *  3. the networks, element by element, in chunks of rows: one dgemm per
- *     layer (OpenBLAS), forward then backward to U = dE/dG, with the input
- *     scaling folded into layer 1 when the potential is made;
+ *  3. the networks, element by element, in chunks of rows: one matrix
+ *     product per layer (OpenBLAS's dgemm; for chunks of at most
+ *     ND_SMALL_GEMM_MAX_ROWS rows, as on one molecule, small_gemm.c's
+ *     kernels, which do not copy the weights), forward then backward to
+ *     U = dE/dG, with the input scaling folded into layer 1 when the
+ *     potential is made;
  *  4. the contraction F = -J^T U, atom-parallel (from the angular set-up
  *     that stage 2 kept when a gradient is wanted): each centre writes the
  *     derivative of its own energy (and, for the radial terms of pairs it
