@@ -5,7 +5,9 @@ import os
 
 ROOT = os.path.dirname(os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__)))))
 NADIR = os.environ.get("ND_NADIR", os.path.join(ROOT, "build", "nadir"))
-MODEL = os.path.join(ROOT, "potential", "models", "default.model")
+# ND_MODEL: a candidate model instead of the bundled one (to try it with
+# these checks before shipping it)
+MODEL = os.environ.get("ND_MODEL", os.path.join(ROOT, "potential", "models", "default.model"))
 SHORTFALL = "the bundled model is a pilot (issue 10)"
 
 
