@@ -1,5 +1,7 @@
 #include "cli/cli.h"
 
+#include <stdatomic.h>
+
 #include <cjson/cJSON.h>
 #include <errno.h>
 #include <limits.h>
@@ -177,11 +179,21 @@ int cli_size_note(const char *command, const nd_model *model, const nd_molecule 
         heavy += mol->z[i] > 1;
     if (max <= 0 || heavy <= max)
         return 0;
-    fprintf(stderr,
-            "nadir %s: note: %s has %d heavy atoms; the model was trained on molecules of at "
-            "most %d, so this is outside its size domain: energies may be off by more than the "
-            "ensemble spread suggests\n",
-            command, where, heavy, max);
+    /* a file of 2,000 frames of one ligand gave 2,000 identical notes: the
+     * first few say it (the JSON reports flag every record) */
+    static _Atomic int noted;
+    int k = atomic_fetch_add(&noted, 1);
+    if (k < CLI_SIZE_NOTES)
+        fprintf(stderr,
+                "nadir %s: note: %s has %d heavy atoms; the model was trained on molecules of at "
+                "most %d, so this is outside its size domain: energies may be off by more than "
+                "the ensemble spread suggests\n",
+                command, where, heavy, max);
+    else if (k == CLI_SIZE_NOTES)
+        fprintf(stderr,
+                "nadir %s: note: further records outside the model's size domain are not listed "
+                "one by one\n",
+                command);
     return 1;
 }
 

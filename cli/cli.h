@@ -86,7 +86,10 @@ int cli_finish(const char *command, const cJSON *doc, int to_stdout, const char 
  * was trained on ("training_sizes": {"heavy_atoms_max": N}) and mol has
  * more heavy atoms, prints "nadir COMMAND: note: WHERE has H heavy atoms;
  * the model was trained on molecules of at most N ..." and returns 1;
- * otherwise (also when the model does not say) returns 0 silently. */
+ * otherwise (also when the model does not say) returns 0 silently. Only the
+ * first CLI_SIZE_NOTES such notes of a run are printed, then one line saying
+ * that more records are outside; the return value still flags each. */
+#define CLI_SIZE_NOTES 3
 int cli_size_note(const char *command, const nd_model *model, const nd_molecule *mol,
                   const char *where);
 

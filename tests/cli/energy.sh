@@ -94,4 +94,15 @@ check "one-member model" "$NADIR" energy "$T/hh.xyz" --model "$T/one.model" --js
 /usr/bin/python3 -c "import json,sys; r=json.load(open(sys.argv[1]))['records']; assert r[0]['energy_spread'] is None and r[1]['energy_vs_first_spread'] is None" "$T/out" && ok "one member: spread null in JSON" || not_ok "one member JSON spread" "$(head -c 300 "$T/out")"
 check "one-member table" "$NADIR" energy "$T/hh.xyz" --model "$T/one.model"
 grep -q "no ensemble, so no spread" "$T/out" && ok "one member: the table says there is no spread" || not_ok "one member table" "$(cat "$T/out")"
+
+# Many records outside the bundled model's size domain (it saw at most 14
+# heavy atoms; this ligand has 23): the first three are noted, then one line
+# says the rest are not listed, and the JSON flags every record.
+check "builds a 23-heavy-atom ligand" "$NADIR" build "CC(C)Cc1ccc(cc1)C(C)C(=O)NCCN1CCOCC1 lig" -o "$T/lig.xyz"
+for k in 1 2 3 4 5 6; do cat "$T/lig.xyz"; done > "$T/lig6.xyz"
+check "energy of six records outside the size domain" "$NADIR" energy "$T/lig6.xyz" --json
+notes=$(grep -c "outside its size domain" "$T/err"); more=$(grep -c "further records outside" "$T/err")
+flags=$(/usr/bin/python3 -c "import json,sys; print(sum(r['outside_training_sizes'] for r in json.load(open(sys.argv[1]))['records']))" "$T/out")
+[ "$notes" = 3 ] && [ "$more" = 1 ] && [ "$flags" = 6 ] && ok "size notes: three, then one line; JSON flags all six" \
+  || not_ok "size notes: three, then one line; JSON flags all six" "notes $notes, further $more, flags $flags"
 finish
