@@ -663,7 +663,6 @@ void nd_train_free(nd_train *t)
     free(t);
 }
 
-/* Range checks of the settings. */
 int nd_train_energy_weights(const nd_dataset *d, double window, const unsigned char *mask,
                             double *w)
 {
@@ -705,6 +704,7 @@ int nd_train_energy_weights(const nd_dataset *d, double window, const unsigned c
     return ND_OK;
 }
 
+/* Range checks of the settings. */
 static int check_config(const nd_train_config *c, nd_error *err)
 {
     if (c->members < 1 || c->members > ND_MODEL_MAX_MEMBERS)
