@@ -403,11 +403,16 @@ static void print_table(int rec, const nd_molecule *mol, const nd_search *s, int
         char unc[32] = "-";
         if (isfinite(f->uncertainty))
             snprintf(unc, sizeof unc, "%.3f", f->uncertainty);
-        char mirror[32] = "";
+        /* notes joined by "; " (run together they read "of 3 model unsure") */
+        char notes[96] = "";
+        size_t len = 0;
         if (f->mirror_of >= 0)
-            snprintf(mirror, sizeof mirror, "mirror image of %d ", f->mirror_of + 1);
-        printf("  %7.4f  %11.1f  %11s  %s%s%s\n", f->weight, f->lowest_freq, unc, mirror,
-               f->repaired ? "repaired " : "", f->uncertain ? "model unsure" : "");
+            len += (size_t)snprintf(notes, sizeof notes, "mirror image of %d", f->mirror_of + 1);
+        if (f->repaired && len < sizeof notes)
+            len += (size_t)snprintf(notes + len, sizeof notes - len, "%srepaired", len ? "; " : "");
+        if (f->uncertain && len < sizeof notes)
+            snprintf(notes + len, sizeof notes - len, "%smodel unsure", len ? "; " : "");
+        printf("  %7.4f  %11.1f  %11s  %s\n", f->weight, f->lowest_freq, unc, notes);
     }
     printf("  energies in kcal/mol; %s in kcal/mol relative to the lowest; Boltzmann weights at "
            "%.2f K; frequencies in cm^-1\n\n",
