@@ -435,7 +435,9 @@ fi
 generated thermal
 
 # ---------------------------------------------------------------- inversion
-if has "$STAGES" inversion && has "$SETS" basis; then
+# (skipped whole once labelled: a machine continuing from the store has the
+# done marker but not the paths, and need not relax the amines again)
+if has "$STAGES" inversion && has "$SETS" basis && [ ! -f "$WORK/labels/basis.inversion.done" ]; then
   D=$WORK/gen/inversion rc=0
   mkdir -p "$D"
   [ -s "$D/built.sdf" ] || "$NADIR" build "$INVERSION" -o "$D/built.sdf" --seed "$SEED" 2>>"$LOG" || rc=$?
