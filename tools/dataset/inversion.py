@@ -19,73 +19,29 @@ tests/reference/model_experiment.py). The path and its neighbourhood teach
 the barrier's shape.
 """
 import argparse
-import math
+import os
 import random
 import sys
 
-RAD = {"H": 0.31, "C": 0.76, "N": 0.71, "O": 0.66, "F": 0.57, "S": 1.05, "Cl": 1.02}
+import numpy as np
 
-
-def read_xyz(path):
-    frames = []
-    with open(path) as f:
-        lines = f.read().splitlines()
-    i = 0
-    while i < len(lines):
-        if not lines[i].strip():
-            i += 1
-            continue
-        n = int(lines[i])
-        title = lines[i + 1].strip()
-        atoms = []
-        for ln in lines[i + 2:i + 2 + n]:
-            w = ln.split()
-            atoms.append((w[0], [float(w[1]), float(w[2]), float(w[3])]))
-        frames.append((title, atoms))
-        i += 2 + n
-    return frames
-
-
-def sub(a, b):
-    return [a[0] - b[0], a[1] - b[1], a[2] - b[2]]
-
-
-def dot(a, b):
-    return a[0] * b[0] + a[1] * b[1] + a[2] * b[2]
-
-
-def cross(a, b):
-    return [a[1] * b[2] - a[2] * b[1], a[2] * b[0] - a[0] * b[2], a[0] * b[1] - a[1] * b[0]]
-
-
-def norm(a):
-    return math.sqrt(dot(a, a))
+HERE = os.path.dirname(os.path.abspath(__file__))
+sys.dont_write_bytecode = True  # no __pycache__ beside the tools
+sys.path.insert(0, HERE)
+from active import bond_set  # noqa: E402
+from structures import read_xyz  # noqa: E402
 
 
 def rotation(a, b):
-    """Rotation matrix (rows) turning unit vector a into unit vector b about
-    their common normal (Rodrigues' formula)."""
-    k = cross(a, b)
-    sn, cs = norm(k), dot(a, b)
+    """Rotation matrix turning unit vector a into unit vector b about their
+    common normal (Rodrigues' formula)."""
+    k = np.cross(a, b)
+    sn, cs = np.linalg.norm(k), float(np.dot(a, b))
     if sn < 1e-12:
-        return [[1.0, 0.0, 0.0], [0.0, 1.0, 0.0], [0.0, 0.0, 1.0]]
-    k = [c / sn for c in k]
-    K = [[0.0, -k[2], k[1]], [k[2], 0.0, -k[0]], [-k[1], k[0], 0.0]]
-    KK = [[sum(K[i][m] * K[m][j] for m in range(3)) for j in range(3)] for i in range(3)]
-    return [[(1.0 if i == j else 0.0) + sn * K[i][j] + (1 - cs) * KK[i][j] for j in range(3)]
-            for i in range(3)]
-
-
-def bonds(atoms):
-    n = len(atoms)
-    nb = [[] for _ in range(n)]
-    for i in range(n):
-        for j in range(i + 1, n):
-            lim = 1.25 * (RAD[atoms[i][0]] + RAD[atoms[j][0]])
-            if norm(sub(atoms[i][1], atoms[j][1])) < lim:
-                nb[i].append(j)
-                nb[j].append(i)
-    return nb
+        return np.eye(3)
+    k /= sn
+    K = np.array([[0.0, -k[2], k[1]], [k[2], 0.0, -k[0]], [-k[1], k[0], 0.0]])
+    return np.eye(3) + sn * K + (1 - cs) * K @ K
 
 
 def group(nb, start, block):
@@ -100,35 +56,33 @@ def group(nb, start, block):
     return seen
 
 
-def path(atoms, steps):
-    nb = bonds(atoms)
-    centre = next((i for i, (el, _) in enumerate(atoms) if el == "N" and len(nb[i]) == 3), None)
+def path(els, xyz, steps):
+    nb = [[] for _ in els]
+    for i, j in bond_set(els, xyz):
+        nb[i].append(j)
+        nb[j].append(i)
+    centre = next((i for i, el in enumerate(els) if el == "N" and len(nb[i]) == 3), None)
     if centre is None:
         return None
-    xn = atoms[centre][1]
-    subs = nb[centre]
-    u = [sub(atoms[s][1], xn) for s in subs]
-    normal = cross(sub(u[1], u[0]), sub(u[2], u[0]))
-    normal = [c / norm(normal) for c in normal]
-    if dot(normal, [u[0][k] + u[1][k] + u[2][k] for k in range(3)]) < 0:
-        normal = [-c for c in normal]
+    xn, subs = xyz[centre], nb[centre]
+    u = [xyz[s] - xn for s in subs]
+    normal = np.cross(u[1] - u[0], u[2] - u[0])
+    normal /= np.linalg.norm(normal)
+    if np.dot(normal, u[0] + u[1] + u[2]) < 0:
+        normal = -normal
     groups = [group(nb, s, centre) for s in subs]
     if any(centre in g for g in groups) or len(set().union(*groups)) != sum(map(len, groups)):
         return None  # a ring through the nitrogen: no rigid groups
     frames = []
     for q in range(steps):
         t = 1 - 2 * q / (steps - 1)
-        x = [list(c) for _, c in atoms]
-        for s, v, g in zip(subs, u, groups):
-            length = norm(v)
-            h = dot(v, normal)
-            inplane = [v[k] - h * normal[k] for k in range(3)]
-            w = [inplane[k] + t * h * normal[k] for k in range(3)]
-            w = [c / norm(w) for c in w]
-            rot = rotation([c / length for c in v], w)
+        x = xyz.copy()
+        for v, g in zip(u, groups):
+            h = np.dot(v, normal)
+            w = v - h * normal + t * h * normal
+            rot = rotation(v / np.linalg.norm(v), w / np.linalg.norm(w))
             for a in g:
-                r = sub(atoms[a][1], xn)
-                x[a] = [xn[k] + dot(rot[k], r) for k in range(3)]
+                x[a] = xn + rot @ (xyz[a] - xn)
         frames.append(x)
     return frames
 
@@ -147,16 +101,16 @@ def main():
     rng = random.Random(a.seed)
     written = 0
     with open(a.out, "w") as out:
-        for title, atoms in read_xyz(a.inp):
-            frames = path(atoms, a.steps)
+        for title, els, xyz in read_xyz(a.inp):
+            frames = path(els, xyz, a.steps)
             if frames is None:
                 print("inversion.py: %s: no three-coordinate nitrogen outside a ring, skipped" % title,
                       file=sys.stderr)
                 continue
             for x in frames:
                 for s in range(a.shakes + 1):
-                    out.write("%d\n%s\n" % (len(atoms), title))
-                    for (el, _), c in zip(atoms, x):
+                    out.write("%d\n%s\n" % (len(els), title))
+                    for el, c in zip(els, x):
                         d = [rng.gauss(0, a.sigma) if s else 0.0 for _ in range(3)]
                         out.write("%-2s %.6f %.6f %.6f\n" % (el, c[0] + d[0], c[1] + d[1], c[2] + d[2]))
                     written += 1

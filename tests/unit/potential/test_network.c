@@ -135,6 +135,21 @@ static void test_forward_backward(void **state)
     nd_model_free(m);
 }
 
+/* Forward and backward pass of element e over rows rows of G, on the folded
+ * layer 1 (W1, b1) or the model's own. */
+static void both_passes(const nd_model *m, int e, int folded, int rows, const double *G,
+                        const double *W1, const double *b1, double *work, double *E, double *U)
+{
+    const int K = m->nmembers;
+    if (folded) {
+        nd_net_forward_folded(m, e, 0, K, rows, G, W1, b1, work, E);
+        nd_net_backward_folded(m, e, 0, K, rows, 0.37, W1, work, U);
+    } else {
+        nd_net_forward(m, e, 0, K, rows, G, work, E);
+        nd_net_backward(m, e, 0, K, rows, 0.37, work, U);
+    }
+}
+
 /* One chunk of rows above the threshold and the same rows in chunks of 1,
  * 3 and 7 rows give the same energies and U to rounding (relative 1e-13:
  * the two paths sum in different orders), on the folded layer 1 of
@@ -159,26 +174,14 @@ static void test_tall_and_short(void **state)
     for (int e = 0; e < 2; e++) {
         nd_net_fold_input(m, e, W1, b1);
         for (int folded = 0; folded < 2; folded++) {
-            if (folded) {
-                nd_net_forward_folded(m, e, 0, K, rows, G, W1, b1, work, E);
-                nd_net_backward_folded(m, e, 0, K, rows, 0.37, W1, work, U);
-            } else {
-                nd_net_forward(m, e, 0, K, rows, G, work, E);
-                nd_net_backward(m, e, 0, K, rows, 0.37, work, U);
-            }
+            both_passes(m, e, folded, rows, G, W1, b1, work, E, U);
             const int sizes[3] = {1, 3, 7};
             for (int c = 0; c < 3; c++)
                 for (int r0 = 0; r0 < rows; r0 += sizes[c]) {
                     int nr = rows - r0 < sizes[c] ? rows - r0 : sizes[c];
                     const double *g = G + (size_t)r0 * D;
-                    double *e2 = E2 + (size_t)r0 * K, *u2 = U2 + (size_t)r0 * D;
-                    if (folded) {
-                        nd_net_forward_folded(m, e, 0, K, nr, g, W1, b1, work, e2);
-                        nd_net_backward_folded(m, e, 0, K, nr, 0.37, W1, work, u2);
-                    } else {
-                        nd_net_forward(m, e, 0, K, nr, g, work, e2);
-                        nd_net_backward(m, e, 0, K, nr, 0.37, work, u2);
-                    }
+                    both_passes(m, e, folded, nr, g, W1, b1, work, E2 + (size_t)r0 * K,
+                                U2 + (size_t)r0 * D);
                 }
             for (int i = 0; i < rows * K; i++)
                 assert_rel_close(E2[i], E[i], 1e-13, 1e-3);
