@@ -62,6 +62,12 @@ static void usage(FILE *f)
             "                           shapes conformer ranking needs; the validation\n"
             "                           relative error then counts those within E\n"
             "                           (default 0: every energy weighs alike)\n"
+            "  --molecule-offset A      fit energies relative within each molecule: the\n"
+            "                           loss sees each energy error less A times the\n"
+            "                           member's mean error over that molecule's training\n"
+            "                           structures (A from 0 to 1; 1 leaves each\n"
+            "                           molecule's absolute level free, so energies of\n"
+            "                           different molecules compare less well; default 0)\n"
             "  --validation-fraction F  fraction of the molecules held out (default %g)\n"
             "  --learning-rate R        initial Adam step (default %g)\n"
             "  --learning-rate-floor R  the rate never halves below R (default %g)\n"
@@ -152,7 +158,7 @@ static int parse(int argc, char **argv, train_options *o)
 {
     enum { O_ELEM = 256, O_LAYERS, O_MEMBERS, O_EPOCHS, O_BATCH, O_FW, O_VF, O_LR, O_LRF, O_PAT,
            O_RPAT, O_WD, O_SEED, O_THREADS, O_STATE, O_RESUME, O_SKIP, O_CACHE, O_QUIET, O_START,
-           O_EW };
+           O_EW, O_MO };
     static const struct option longopts[] = {{"output", required_argument, NULL, 'o'},
                                               {"elements", required_argument, NULL, O_ELEM},
                                               {"layers", required_argument, NULL, O_LAYERS},
@@ -161,6 +167,7 @@ static int parse(int argc, char **argv, train_options *o)
                                               {"batch", required_argument, NULL, O_BATCH},
                                               {"force-weight", required_argument, NULL, O_FW},
                                               {"energy-window", required_argument, NULL, O_EW},
+                                              {"molecule-offset", required_argument, NULL, O_MO},
                                               {"validation-fraction", required_argument, NULL, O_VF},
                                               {"learning-rate", required_argument, NULL, O_LR},
                                               {"learning-rate-floor", required_argument, NULL, O_LRF},
@@ -257,6 +264,12 @@ static int parse(int argc, char **argv, train_options *o)
                 o->cfg.weight_decay = v;
             break;
         }
+        case O_MO:
+            if (cli_parse_double(optarg, &v) < 0 || !(v >= 0 && v <= 1))
+                return cli_usage(CMD, "--molecule-offset takes a number from 0 to 1, not '%s'",
+                                 optarg);
+            o->cfg.molecule_offset = v;
+            break;
         case O_SEED: {
             char *end;
             unsigned long long s = strtoull(optarg, &end, 10);

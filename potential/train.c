@@ -157,6 +157,7 @@ typedef struct job {
     const nd_dataset *d;
     weights wt;
     const double *sw;        /* per-structure energy weights (dataset index), or NULL: all 1 */
+    const double *eoff;      /* per-structure energy offsets (dataset index), or NULL: all 0 */
     int want_forces;         /* compute forces of structures that have reference forces */
     double *grad;            /* member-vector gradient to add to, or NULL */
     double *pred_e;          /* per structure of the chunk, or NULL */
@@ -277,9 +278,11 @@ static int chunk_run(cws *w, const job *jb, const long *idx, int ns, sums *out, 
         double dE = E - e.energy, ce = jb->wt.ce * (jb->sw ? jb->sw[idx[s]] : 1.0);
         if (jb->pred_e)
             jb->pred_e[s] = E;
-        out->loss += ce * dE * dE / n;
         out->e_abs += fabs(dE);
         out->e_sq += dE * dE;
+        if (jb->eoff) /* the loss sees the error less the molecule's offset */
+            dE -= jb->eoff[idx[s]];
+        out->loss += ce * dE * dE / n;
         out->ne++;
         if (jb->grad)
             for (int i = 0; i < n; i++)
@@ -581,6 +584,8 @@ struct nd_train {
     long ntrain, nval, nval_atoms;
     long *train_idx, *val_idx, *val_off, *val_low, *order;
     double *sw;                             /* energy weights per structure, or NULL */
+    double *eoff, *pred_tr;                 /* molecule offsets per structure, predictions
+                                             * of the training set (molecule_offset > 0) */
     int ntrain_mol, nval_mol;
     double *theta, *best, *am, *av, *grad; /* K x P each (grad: P) */
     member *mem;
@@ -649,6 +654,8 @@ void nd_train_free(nd_train *t)
     free(t->val_off);
     free(t->val_low);
     free(t->sw);
+    free(t->eoff);
+    free(t->pred_tr);
     free(t->order);
     free(t->theta);
     free(t->best);
@@ -731,6 +738,9 @@ static int check_config(const nd_train_config *c, nd_error *err)
     if (!(c->weight_decay >= 0) || !isfinite(c->weight_decay))
         return nd_fail(err, ND_EINPUT, "train: weight decay %g, expected 0 or more",
                        c->weight_decay);
+    if (!(c->molecule_offset >= 0 && c->molecule_offset <= 1))
+        return nd_fail(err, ND_EINPUT, "train: molecule offset %g, expected 0 to 1",
+                       c->molecule_offset);
     if (!(c->energy_window >= 0) || !isfinite(c->energy_window))
         return nd_fail(err, ND_EINPUT, "train: energy window %g kcal/mol, expected 0 or more",
                        c->energy_window);
@@ -847,6 +857,8 @@ static uint64_t fingerprint(const nd_train *t)
     h = hash_double(h, c->weight_decay);
     if (c->energy_window > 0) /* only when set: older checkpoints keep their fingerprint */
         h = hash_double(h, c->energy_window);
+    if (c->molecule_offset > 0) /* likewise */
+        h = hash_double(h, 2 + c->molecule_offset);
     h = nd_model_fnv1a64(h, &c->seed, sizeof c->seed);
     h = hash_long(h, t->ntrain);
     for (long s = 0; s < t->ntrain; s++) {
@@ -1162,6 +1174,14 @@ int nd_train_new(nd_train **out, const nd_dataset *data, const char *data_name,
             goto fail;
         }
     }
+    if (t->cfg.molecule_offset > 0) {
+        t->eoff = calloc((size_t)nd_dataset_count(data), sizeof(double));
+        t->pred_tr = malloc((size_t)t->ntrain * sizeof(double));
+        if (!t->eoff || !t->pred_tr) {
+            s = nd_fail(err, ND_ENOMEM, "train: out of memory");
+            goto fail;
+        }
+    }
     t->K = t->cfg.members;
     t->P = nd_train_member_doubles(t->model);
     size_t KP = (size_t)t->K * t->P;
@@ -1216,10 +1236,63 @@ static void adam_step(nd_train *t, int k, const double *g)
     nd_train_member_set(t->model, k, th);
 }
 
+/* The molecule offsets of member k for its next epoch (molecule_offset
+ * A > 0): its energies of the training structures, then per molecule the
+ * mean error, weighted like the loss, times A, into eoff of each of the
+ * molecule's structures. The loss then fits e - A mean(e) per molecule: at
+ * A = 1 only energies relative within a molecule, which are what ranking
+ * conformers needs, and the molecule's absolute level is left free (it is
+ * a constant the networks would otherwise spend their fit on, and it does
+ * not carry over to new molecules); below 1 the level keeps weight
+ * (1 - A)^2. Held for the epoch: the weighted mean is where the loss is
+ * flat in the offset, so the gradient is right at its start. */
+static int molecule_offsets(nd_train *t, int k, nd_error *err)
+{
+    job jb = {0};
+    jb.m = t->model;
+    jb.k = k;
+    jb.d = t->d;
+    jb.pred_e = t->pred_tr;
+    sums tot;
+    int s = runner_run(&t->run, &jb, t->train_idx, t->ntrain, EVAL_CHUNK, &tot, err);
+    if (s)
+        return s;
+    int nk = nd_dataset_key_count(t->d);
+    double *num = calloc((size_t)(nk > 0 ? nk : 1), sizeof(double));
+    double *den = calloc((size_t)(nk > 0 ? nk : 1), sizeof(double));
+    if (!num || !den) {
+        free(num);
+        free(den);
+        return nd_fail(err, ND_ENOMEM, "train: out of memory");
+    }
+    for (long q = 0; q < t->ntrain; q++) {
+        long i = t->train_idx[q];
+        nd_dataset_entry e;
+        nd_dataset_get(t->d, i, &e);
+        double w = (t->sw ? t->sw[i] : 1.0) / e.natoms; /* the loss's weight */
+        int key = nd_dataset_key_index(t->d, i);
+        num[key] += w * (t->pred_tr[q] - e.energy);
+        den[key] += w;
+    }
+    for (long q = 0; q < t->ntrain; q++) {
+        long i = t->train_idx[q];
+        int key = nd_dataset_key_index(t->d, i);
+        t->eoff[i] = den[key] > 0 ? t->cfg.molecule_offset * num[key] / den[key] : 0;
+    }
+    free(num);
+    free(den);
+    return ND_OK;
+}
+
 /* One pass of member k over the training set in its own order; training
  * figures into *tr. */
 static int member_epoch(nd_train *t, int k, nd_train_errors *tr, nd_error *err)
 {
+    if (t->cfg.molecule_offset > 0) {
+        int s = molecule_offsets(t, k, err);
+        if (s)
+            return s;
+    }
     nd_rng r;
     nd_rng_stream(&r, t->cfg.seed ^ UINT64_C(0x6f72646572),
                   ((uint64_t)(k + 1) << 32) | (uint64_t)t->epoch);
@@ -1249,6 +1322,7 @@ static int member_epoch(nd_train *t, int k, nd_train_errors *tr, nd_error *err)
         jb.wt.ce = 1.0 / (double)n;
         jb.wt.cf = C > 0 ? t->cfg.force_weight / (double)C : 0;
         jb.sw = t->sw;
+        jb.eoff = t->eoff;
         jb.want_forces = t->cfg.force_weight > 0;
         jb.grad = t->grad;
         sums tot;
@@ -1482,6 +1556,8 @@ static char *state_header(const nd_train *t)
     cJSON_AddNumberToObject(o, "force_weight", t->cfg.force_weight);
     if (t->cfg.energy_window > 0)
         cJSON_AddNumberToObject(o, "energy_window", t->cfg.energy_window);
+    if (t->cfg.molecule_offset > 0)
+        cJSON_AddNumberToObject(o, "molecule_offset", t->cfg.molecule_offset);
     char *s = cJSON_PrintUnformatted(o);
     cJSON_Delete(o);
     return s;
@@ -1716,6 +1792,8 @@ int nd_train_model(const nd_train *t, nd_model **out, nd_error *err)
     cJSON_AddNumberToObject(tr, "force_weight", t->cfg.force_weight);
     if (t->cfg.energy_window > 0)
         cJSON_AddNumberToObject(tr, "energy_window", t->cfg.energy_window);
+    if (t->cfg.molecule_offset > 0)
+        cJSON_AddNumberToObject(tr, "molecule_offset", t->cfg.molecule_offset);
     cJSON_AddNumberToObject(tr, "learning_rate", t->cfg.learning_rate);
     cJSON_AddNumberToObject(tr, "learning_rate_floor", t->cfg.min_learning_rate);
     cJSON_AddNumberToObject(tr, "weight_decay", t->cfg.weight_decay);

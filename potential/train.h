@@ -16,6 +16,13 @@
  *    set (see nd_train_energy_weights); its gradient in the weights is exact, the
  *    force term by forward-mode tangents (potential/net_tangent.h,
  *    potential/descriptor.h: nd_descriptor_atom_tangent);
+ *  - with a molecule offset A > 0, E_s - E_s^ref in the energy term is less
+ *    A times the member's mean error over the training structures of s's
+ *    molecule (weighted like the loss, found before each of the member's
+ *    epochs and held through it): at A = 1 only energies relative within
+ *    a molecule are fitted, which is what ranking conformers needs, and the
+ *    molecule's own level is left free; below 1 that level keeps weight
+ *    (1 - A)^2;
  *  - Adam (D. P. Kingma and J. Ba, "Adam: a method for stochastic
  *    optimization", ICLR 2015; beta1 0.9, beta2 0.999, epsilon 1e-8 as
  *    there) per ensemble member, with its learning rate halved when the
@@ -64,6 +71,7 @@ typedef struct nd_train_config {
     int batch;                              /* structures per minibatch: 32 */
     double force_weight;                    /* lambda_F: 1 */
     double energy_window;                   /* W, kcal/mol: 0 (every energy weighs alike) */
+    double molecule_offset;                 /* A in [0, 1]: 0 (absolute energies; see below) */
     double validation_fraction;             /* of the molecules: 0.1 (0: no validation) */
     double learning_rate;                   /* 1e-3 */
     double min_learning_rate;               /* 1e-5 */

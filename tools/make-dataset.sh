@@ -32,8 +32,9 @@
 #              tools/molecules/inversion.smi (tools/dataset/inversion.py: the
 #              nitrogen from its pyramid through planar to inverted, 13
 #              steps, each also with 4 small displacements), from the
-#              reference method's own minimum; without them the model never
-#              saw a planar amine nitrogen
+#              reference method's own minimum, and 24 in-plane bends of each
+#              planar frame (up to 15 degrees per substituent); without them
+#              the model never saw a planar amine nitrogen
 #   scans      relaxed torsion scans (nadir optimize --scan, xtb single points)
 #              of one rotatable bond on a seeded fraction of the molecules
 #   summary    counts, element counts, energy and force ranges (summary.json),
@@ -120,6 +121,10 @@ interruption and it continues where it stopped.
   --thermal-conformer N  displacements per conformer (default 3)
   --thermal-torsion N  displacements per torsion-varied shape (default 2)
   --relax N            conformers relaxed per training molecule (default 1)
+  --relax-skip K       training molecules: relax conformers K+1 .. K+N instead
+                       of the first N (default 0), so that a later run adds
+                       distinct minima to molecules relaxed before; its own
+                       work files and labels (relax/train.cC.sK.rN)
   --relax-test N       conformers relaxed per held-out molecule (default 8:
                        their distinct minima give the relative conformer
                        energies and rank correlations of the evaluation)
@@ -172,7 +177,7 @@ SEED=${ND_DATASET_SEED:-1}
 THREADS=${ND_DATASET_THREADS:-}
 SETS="" STAGES="conformers,torsions,thermal,relax,inversion,scans,summary"
 NTRAIN="" NTEST="" NLARGE=""
-CONF="" TORS="" TH_CONF="" TH_TORS="" RELAX="" RELAX_TEST="" RELAX_LARGE="" EVERY=5 TH_MIN="" SCANFRAC="" AUDIT=3
+CONF="" TORS="" TH_CONF="" TH_TORS="" RELAX="" RELAX_SKIP=0 RELAX_TEST="" RELAX_LARGE="" EVERY=5 TH_MIN="" SCANFRAC="" AUDIT=3
 AUDIT_STAGES=conformers,torsions,thermal,relax SCANSTEP=30 SMALL=$ROOT/tools/molecules/small.smi LARGE=$ROOT/tools/molecules/large.smi TESTFRAC=0.1
 BASIS=$ROOT/tools/molecules/basis.smi INVERSION=$ROOT/tools/molecules/inversion.smi
 PILOT=0 STORE=""
@@ -196,6 +201,7 @@ while [ $# -gt 0 ]; do
     --thermal-conformer) TH_CONF=$2 ;;
     --thermal-torsion) TH_TORS=$2 ;;
     --relax) RELAX=$2 ;;
+    --relax-skip) RELAX_SKIP=$2 ;;
     --every) EVERY=$2 ;;
     --thermal-minimum) TH_MIN=$2 ;;
     --relax-test) RELAX_TEST=$2 ;;
@@ -224,6 +230,7 @@ else
   : "${NTRAIN:=0}" "${NTEST:=0}" "${NLARGE:=0}"
   : "${CONF:=8}" "${TORS:=8}" "${TH_CONF:=3}" "${TH_TORS:=2}" "${RELAX:=1}" "${RELAX_TEST:=8}" "${RELAX_LARGE:=4}" "${TH_MIN:=2}" "${SCANFRAC:=0.06}"
 fi
+case $RELAX_SKIP in ''|*[!0-9]*) echo "make-dataset: --relax-skip wants a whole number, not '$RELAX_SKIP'" >&2; exit 2 ;; esac
 NADIR=${NADIR:-$ROOT/build/nadir}
 # A private copy of the program: others may rebuild build/ during a long run.
 mkdir -p "$WORK/bin"
@@ -372,11 +379,16 @@ if has "$STAGES" relax; then
     has "$SETS" $s || continue
     case $s in train) RELAX_S=$RELAX ;; test) RELAX_S=$RELAX_TEST ;; *) RELAX_S=$RELAX_LARGE ;; esac
     [ "$RELAX_S" -gt 0 ] || continue
+    # the run's name in work files and label markers: skipped conformers
+    # (training molecules only) get their own, since they are other structures
+    RN=c$CONF.r$RELAX_S
+    [ $s = train ] && [ "$RELAX_SKIP" -gt 0 ] && RN=c$CONF.s$RELAX_SKIP.r$RELAX_S
+    SKIP_S=0; [ $s = train ] && SKIP_S=$RELAX_SKIP
     case $s in train) nm=$NTRAIN ;; test) nm=$NTEST ;; large) nm=$NLARGE ;; basis) nm=0 ;; esac
     G=$WORK/gen/$s.n$nm
-    R=$WORK/relax/$s.c$CONF.r$RELAX_S
+    R=$WORK/relax/$s.$RN
     mkdir -p "$R"
-    [ -f "$R/start.n$nm.xyz" ] || $PY "$HELP" pick "$G.c$CONF.sdf" "$R/start.n$nm.xyz" --per-molecule "$RELAX_S"
+    [ -f "$R/start.n$nm.xyz" ] || $PY "$HELP" pick "$G.c$CONF.sdf" "$R/start.n$nm.xyz" --per-molecule "$RELAX_S" --skip "$SKIP_S"
     # chunk K holds molecules CHUNK*K .. of the list, named by K and its
     # molecule count, so a longer list (a larger --train-molecules) finds the
     # full chunks already relaxed
@@ -416,7 +428,7 @@ EOF
       cn=$(basename "$b")
       # the files to label, unless labelled already (the label store keeps
       # the done markers, not these derived files nor the trajectories)
-      L=$WORK/labels/$s.relax.$cn.c$CONF.r$RELAX_S
+      L=$WORK/labels/$s.relax.$cn.$RN
       [ -f "$b.frames.xyz" ] || [ -f "$L.frames.done" ] \
           || $PY "$HELP" frames "$b.traj.xyz" "$b.frames.xyz" --every "$EVERY" 2>>"$LOG"
       [ -f "$b.minima.xyz" ] || { [ -f "$L.minima.done" ] && [ -f "$L.near.done" ]; } \
@@ -425,9 +437,9 @@ EOF
           --per-structure "$TH_MIN" --seed "$SEED" --heavy 0.025 --hydrogen 0.05 2>>"$LOG"
       # one audit per four chunks: the paths hold the most strained structures
       au=0; [ "$AUDIT" -gt 0 ] && case $cn in chunk???[048]-*) au=1 ;; esac
-      label $s "relaxation path" "$b.frames.xyz" "relax.$cn.c$CONF.r$RELAX_S.frames" $au || true
-      label $s minimum "$b.minima.xyz" "relax.$cn.c$CONF.r$RELAX_S.minima" 0 || true
-      label $s "thermal near minimum" "$b.near.xyz" "relax.$cn.c$CONF.r$RELAX_S.near" 0 || true
+      label $s "relaxation path" "$b.frames.xyz" "relax.$cn.$RN.frames" $au || true
+      label $s minimum "$b.minima.xyz" "relax.$cn.$RN.minima" 0 || true
+      label $s "thermal near minimum" "$b.near.xyz" "relax.$cn.$RN.near" 0 || true
     done <"$R/chunks.n$nm.txt"
   done
 fi
@@ -437,7 +449,8 @@ generated thermal
 # ---------------------------------------------------------------- inversion
 # (skipped whole once labelled: a machine continuing from the store has the
 # done marker but not the paths, and need not relax the amines again)
-if has "$STAGES" inversion && has "$SETS" basis && [ ! -f "$WORK/labels/basis.inversion.done" ]; then
+if has "$STAGES" inversion && has "$SETS" basis && { [ ! -f "$WORK/labels/basis.inversion.done" ] \
+    || [ ! -f "$WORK/labels/basis.inversion-bends.done" ]; }; then
   D=$WORK/gen/inversion rc=0
   mkdir -p "$D"
   [ -s "$D/built.sdf" ] || "$NADIR" build "$INVERSION" -o "$D/built.sdf" --seed "$SEED" 2>>"$LOG" || rc=$?
@@ -448,7 +461,12 @@ if has "$STAGES" inversion && has "$SETS" basis && [ ! -f "$WORK/labels/basis.in
   fi
   [ $rc = 0 ] && { [ -s "$D/paths.xyz" ] || $PY "$ROOT/tools/dataset/inversion.py" "$D/minima.xyz" "$D/paths.xyz" \
       --seed "$SEED" 2>>"$LOG" || rc=$?; }
-  if [ $rc = 0 ]; then label basis "inversion path" "$D/paths.xyz" inversion || true
+  # the planar frames bent in plane (inversion.py --bends: why there)
+  [ $rc = 0 ] && { [ -s "$D/bends.xyz" ] || $PY "$ROOT/tools/dataset/inversion.py" "$D/minima.xyz" "$D/bends.xyz" \
+      --bends 24 --bend-angle 15 --seed "$SEED" 2>>"$LOG" || rc=$?; }
+  if [ $rc = 0 ]; then
+    label basis "inversion path" "$D/paths.xyz" inversion || true
+    label basis "inversion path" "$D/bends.xyz" inversion-bends || true
   else say "inversion stage failed (exit $rc), see $LOG"; fi
 fi
 

@@ -49,6 +49,8 @@ basis), evaluates it on the held-out sets and records provenance and status.
   --energy-window E   weigh down the energies of structures more than E
                       kcal/mol above their molecule's lowest (nadir train
                       --energy-window; default: every energy alike)
+  --molecule-offset A fit energies relative within each molecule (nadir
+                      train --molecule-offset, 0 to 1; default 0)
   --resume            continue an interrupted run of the same NAME
   --help              this text
 EOF
@@ -57,7 +59,7 @@ EOF
 [ $# -ge 1 ] || { usage >&2; exit 2; }
 case "$1" in -h|--help) usage; exit 0 ;; -*) echo "train-model: NAME first (see --help)" >&2; exit 2 ;; esac
 NAME=$1; shift
-WORK=$ROOT/data/dataset EXTRA=() LAYERS="" MEMBERS=4 EPOCHS=100 SEED=1 THREADS=2 START="" RESUME="" RATE="" FWEIGHT="" EWINDOW=""
+WORK=$ROOT/data/dataset EXTRA=() LAYERS="" MEMBERS=4 EPOCHS=100 SEED=1 THREADS=2 START="" RESUME="" RATE="" FWEIGHT="" EWINDOW="" MOFFSET=""
 while [ $# -gt 0 ]; do
   case "$1" in
     --resume) RESUME=--resume; shift; continue ;;
@@ -76,6 +78,7 @@ while [ $# -gt 0 ]; do
     --learning-rate) RATE=$2 ;;
     --force-weight) FWEIGHT=$2 ;;
     --energy-window) EWINDOW=$2 ;;
+    --molecule-offset) MOFFSET=$2 ;;
     *) echo "train-model: unknown option '$1' (see --help)" >&2; exit 2 ;;
   esac
   shift 2
@@ -105,6 +108,7 @@ if [ -n "$START" ]; then opts=(--start-from "$START" --epochs "$EPOCHS" --seed "
 [ -n "$RATE" ] && opts+=(--learning-rate "$RATE")
 [ -n "$FWEIGHT" ] && opts+=(--force-weight "$FWEIGHT")
 [ -n "$EWINDOW" ] && opts+=(--energy-window "$EWINDOW")
+[ -n "$MOFFSET" ] && opts+=(--molecule-offset "$MOFFSET")
 MODEL=$OUT/$NAME.model
 say "nadir train ${opts[*]} $RESUME"
 "$NADIR" train "$DATA" -o "$MODEL" "${opts[@]}" $RESUME 2> >(tee -a "$OUT/train.log" >&2) | tee -a "$OUT/run.log"

@@ -8,7 +8,11 @@ nitrogen in the plane of its three neighbours (ammonia: H-N-H 120 degrees,
 D3h); the last frame is the mirror image of the first through that plane
 (height of the nitrogen reversed); displaced copies differ from their frame
 by about sigma; a nitrogen in a ring and a molecule without one are skipped
-with a message. No reference method needed. TAP output for tests/run."""
+with a message. With --bends, the planar frames are turned in plane: every
+atom stays in the plane, bond lengths and group shapes are kept, the
+H-N-H angles of ammonia leave 120 degrees (they sum to 360 in a plane) by
+up to twice the bend angle. No reference method needed. TAP output for
+tests/run."""
 import math
 import os
 import subprocess
@@ -124,7 +128,46 @@ def main():
         shake = [frames[first + s][1] - frames[first][1] for s in range(1, shakes + 1)]
         rms = float(np.sqrt(np.mean(np.concatenate(shake) ** 2)))
         tap(0.015 < rms < 0.05, "%s: displaced copies move by about sigma (0.03 A)" % name, "RMS %.4f A" % rms)
+    check_bends(src_mols=[("ammonia", pyramid()), ("methylamine", methylamine())], steps=steps)
     return tap.finish()
+
+
+def angle(x, c, i, j):
+    u, v = x[i] - x[c], x[j] - x[c]
+    return math.degrees(math.acos(np.dot(u, v) / (np.linalg.norm(u) * np.linalg.norm(v))))
+
+
+def check_bends(src_mols, steps, count=20, max_deg=12.0):
+    with tempfile.TemporaryDirectory() as tmp:
+        src, out = os.path.join(tmp, "in.xyz"), os.path.join(tmp, "bends.xyz")
+        write_xyz(src, src_mols)
+        r = subprocess.run([sys.executable, TOOL, src, out, "--steps", str(steps), "--bends", str(count),
+                            "--bend-angle", str(max_deg), "--seed", "5"], capture_output=True, text=True)
+        frames = read_xyz(out) if r.returncode == 0 else []
+    tap(len(frames) == 2 * count, "--bends: %d planar frames per amine" % count,
+        "%d structures, exit %d %s" % (len(frames), r.returncode, r.stderr.strip()[-200:]))
+    if len(frames) != 2 * count:
+        return
+    for name, first, groups in (("ammonia", 0, [[1], [2], [3]]), ("methylamine", count, [[1, 4, 5, 6], [2], [3]])):
+        x0 = np.array([a[1] for a in dict(src_mols)[name]])
+        nbrs = [g[0] for g in groups]
+        worst_len, worst_plane = 0.0, 0.0
+        for _, x in frames[first:first + count]:
+            for g in groups:
+                for a in [0] + g:
+                    for b in g:
+                        worst_len = max(worst_len, abs(np.linalg.norm(x[a] - x[b]) - np.linalg.norm(x0[a] - x0[b])))
+            worst_plane = max(worst_plane, abs(height(x, 0, nbrs)))
+        tap(worst_len < 5e-6 and worst_plane < 1e-5,
+            "%s bends: bond lengths and group shapes kept, nitrogen stays in the plane" % name,
+            "worst length change %.2e A, height %.2e A" % (worst_len, worst_plane))
+        if name == "ammonia":
+            dev = [max(abs(angle(x, 0, i, j) - 120) for i, j in ((1, 2), (1, 3), (2, 3)))
+                   for _, x in frames[first:first + count]]
+            sums = [sum(angle(x, 0, i, j) for i, j in ((1, 2), (1, 3), (2, 3))) for _, x in frames[first:first + count]]
+            tap(max(dev) <= 2 * max_deg + 1e-4 and max(dev) > 0.3 * max_deg and max(abs(v - 360) for v in sums) < 1e-3,
+                "ammonia bends: H-N-H angles move off 120 degrees by at most twice the bend angle, sum 360",
+                "largest deviation %.2f degrees, angle sums within %.1e of 360" % (max(dev), max(abs(v - 360) for v in sums)))
 
 
 if __name__ == "__main__":

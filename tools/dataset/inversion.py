@@ -2,6 +2,7 @@
 """Umbrella inversion paths of three-coordinate nitrogen, for the basis set.
 
   inversion.py IN.xyz OUT.xyz [--steps 13] [--shakes 4] [--sigma 0.03] [--seed 7]
+                              [--bends 0] [--bend-angle 15]
 
 For every structure of IN.xyz (relaxed molecules, title = molecule name) the
 first nitrogen with three neighbours is carried from its own pyramid through
@@ -17,6 +18,14 @@ had never seen planar ammonia and placed it far too low, with three
 imaginary modes instead of the one of the inversion saddle (a check of
 tests/reference/model_experiment.py). The path and its neighbourhood teach
 the barrier's shape.
+
+With --bends N, only the planar frames are written instead (the middle step
+of the path), N times per molecule, each substituent turned as a rigid group
+about the plane's normal through the nitrogen by its own angle, uniform in
+[-bend-angle, bend-angle] degrees: the in-plane bends. Why: trained on the
+paths alone, the model still gave planar ammonia three imaginary modes, the
+in-plane e' bends at -620 cm^-1 besides the inversion; the path's small
+Gaussian shakes move the hydrogens too little to show that curvature.
 """
 import argparse
 import os
@@ -87,6 +96,37 @@ def path(els, xyz, steps):
     return frames
 
 
+def bends(els, xyz, steps, count, max_deg, rng):
+    """count in-plane bends of the planar frame of the path (None when the
+    molecule has no suitable nitrogen)."""
+    frames = path(els, xyz, steps)
+    if frames is None:
+        return None
+    flat = frames[(steps - 1) // 2]
+    nb = [[] for _ in els]
+    for i, j in bond_set(els, flat):
+        nb[i].append(j)
+        nb[j].append(i)
+    centre = next(i for i, el in enumerate(els) if el == "N" and len(nb[i]) == 3)
+    xn, subs = flat[centre], nb[centre]
+    u = [flat[s] - xn for s in subs]
+    normal = np.cross(u[1] - u[0], u[2] - u[0])
+    normal /= np.linalg.norm(normal)
+    groups = [group(nb, s, centre) for s in subs]
+    out = []
+    for _ in range(count):
+        x = flat.copy()
+        for g in groups:
+            ang = np.radians(rng.uniform(-max_deg, max_deg))
+            K = np.array([[0.0, -normal[2], normal[1]], [normal[2], 0.0, -normal[0]],
+                          [-normal[1], normal[0], 0.0]])
+            rot = np.eye(3) + np.sin(ang) * K + (1 - np.cos(ang)) * K @ K
+            for a in g:
+                x[a] = xn + rot @ (flat[a] - xn)
+        out.append(x)
+    return out
+
+
 def main():
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("inp")
@@ -95,20 +135,27 @@ def main():
     ap.add_argument("--shakes", type=int, default=4)
     ap.add_argument("--sigma", type=float, default=0.03)
     ap.add_argument("--seed", type=int, default=7)
+    ap.add_argument("--bends", type=int, default=0)
+    ap.add_argument("--bend-angle", type=float, default=15.0)
     a = ap.parse_args()
-    if a.steps < 2:
-        sys.exit("inversion.py: --steps must be at least 2")
+    if a.steps < 3 or a.steps % 2 == 0:
+        sys.exit("inversion.py: --steps must be odd and at least 3 (the middle step is the planar one)")
+    if a.bends < 0 or not 0 < a.bend_angle <= 60:
+        sys.exit("inversion.py: --bends must be at least 0 and --bend-angle in (0, 60] degrees")
     rng = random.Random(a.seed)
     written = 0
     with open(a.out, "w") as out:
         for title, els, xyz in read_xyz(a.inp):
-            frames = path(els, xyz, a.steps)
+            if a.bends:
+                frames = bends(els, xyz, a.steps, a.bends, a.bend_angle, rng)
+            else:
+                frames = path(els, xyz, a.steps)
             if frames is None:
                 print("inversion.py: %s: no three-coordinate nitrogen outside a ring, skipped" % title,
                       file=sys.stderr)
                 continue
             for x in frames:
-                for s in range(a.shakes + 1):
+                for s in range(1 if a.bends else a.shakes + 1):
                     out.write("%d\n%s\n" % (len(els), title))
                     for el, c in zip(els, x):
                         d = [rng.gauss(0, a.sigma) if s else 0.0 for _ in range(3)]

@@ -19,8 +19,8 @@ structures whatever the order or the subset of molecules.
         every K-th frame of relaxation paths (titles set to the molecule key)
   retitle IN.xyz OUT.xyz
         frames with the title cut to its first word (the molecule key)
-  pick IN.sdf OUT.xyz --per-molecule N
-        the first N conformers of each molecule
+  pick IN.sdf OUT.xyz --per-molecule N [--skip K]
+        the first N conformers of each molecule (after the first K)
   scan-setup IN.sdf OUTDIR --fraction F --seed S
         choose molecules and one rotatable torsion (I,J,K,L) each for scans
 """
@@ -376,11 +376,12 @@ def cmd_retitle(args):
 def cmd_pick(args):
     src, dst = args[0], args[1]
     per = int(opt(args, "--per-molecule", "1"))
+    skip = int(opt(args, "--skip", "0"))  # those relaxed by an earlier run
     recs = read_sdf(src)
     order, groups = group_by_title(recs, lambda r: r["title"])
     out = []
     for key in order:
-        for r in groups[key][:per]:
+        for r in groups[key][skip:skip + per]:
             out.append(xyz_text(key, r["elements"], r["xyz"]))
     write_atomic(dst, "".join(out))
 

@@ -562,6 +562,123 @@ static void test_energy_window(void **state)
     remove(spath);
 }
 
+/* A copy of the dataset file src with every energy of the molecule with key
+ * index q (order of first appearance) raised by shift[q % 4]; returns its
+ * path. */
+static const char *shifted_copy(const char *src, const double shift[4])
+{
+    FILE *f = fopen(src, "r");
+    assert_non_null(f);
+    text t = {0};
+    char *line = NULL, keys[64][64];
+    size_t cap = 0;
+    int nkeys = 0;
+    while (getline(&line, &cap, f) >= 0) {
+        cJSON *o = cJSON_Parse(line);
+        assert_non_null(o);
+        cJSON *k = cJSON_GetObjectItemCaseSensitive(o, "key"),
+              *e = cJSON_GetObjectItemCaseSensitive(o, "energy");
+        if (cJSON_IsString(k) && cJSON_IsNumber(e)) {
+            int q = 0;
+            while (q < nkeys && strcmp(keys[q], k->valuestring))
+                q++;
+            if (q == nkeys) {
+                assert_true(nkeys < 64 && strlen(k->valuestring) < 64);
+                strcpy(keys[nkeys++], k->valuestring);
+            }
+            cJSON_SetNumberValue(e, e->valuedouble + shift[q % 4]);
+        }
+        char *out = cJSON_PrintUnformatted(o);
+        text_add(&t, out);
+        text_add(&t, "\n");
+        free(out);
+        cJSON_Delete(o);
+    }
+    free(line);
+    fclose(f);
+    const char *path = nd_test_write_temp(t.s, ".jsonl");
+    free(t.s);
+    return path;
+}
+
+/* Largest |a - b| over the parameters. */
+static double param_change(const nd_model *a, const nd_model *b)
+{
+    assert_int_equal((long)a->nparams, (long)b->nparams);
+    double d = 0;
+    for (size_t q = 0; q < a->nparams; q++)
+        d = nd_larger(d, fabs(a->params[q] - b->params[q]));
+    return d;
+}
+
+/* Molecule offset 1 fits energies relative within each molecule only: a
+ * warm start trained on energies with a different constant added to each
+ * molecule's gives the same weights (to rounding), while without the
+ * offset the networks must learn the constants and end elsewhere; an offset
+ * in between differs from both; the offset is one of the settings a
+ * checkpoint must match; out of range it is refused. */
+static void test_molecule_offset(void **state)
+{
+    (void)state;
+    const char *p = make_dataset(6, 4, 0.06, 14, 43, NULL);
+    char path[4096], moved[4096];
+    snprintf(path, sizeof path, "%s", p);
+    static const double shift[4] = {7.25, -3.5, 12.125, 0.75}; /* kcal/mol */
+    snprintf(moved, sizeof moved, "%s", shifted_copy(path, shift));
+    nd_train_config c;
+    small_config(&c);
+    c.epochs = 2;
+    c.validation_fraction = 0.34;
+    nd_model *start = train_run(path, &c, 1, 0);
+    c.start = start;
+    c.epochs = 3;
+    c.learning_rate = 3e-3;
+    c.force_weight = 0.01; /* the energy term leads */
+    c.molecule_offset = 1;
+    nd_model *a = train_run(path, &c, 1, 0), *b = train_run(moved, &c, 1, 0);
+    c.molecule_offset = 0;
+    nd_model *a0 = train_run(path, &c, 1, 0), *b0 = train_run(moved, &c, 1, 0);
+    c.molecule_offset = 0.5;
+    nd_model *h = train_run(path, &c, 1, 0);
+    /* changes relative to how far training moved the weights */
+    double moved_by = param_change(a, start);
+    double same = param_change(a, b) / moved_by, apart = param_change(a0, b0) / moved_by;
+    print_message("# training moved the weights by up to %.3g; shifted energies then change them "
+                  "by %.2e of that with offset 1, by %.2e with offset 0\n",
+                  moved_by, same, apart);
+    assert_true(moved_by > 1e-3);
+    assert_true(same < 1e-9);
+    assert_true(apart > 0.05);
+    assert_true(param_change(h, a) > 1e-3 * moved_by && param_change(h, a0) > 1e-3 * moved_by);
+    /* a checkpoint of another offset is refused */
+    nd_dataset *d = load(path);
+    nd_train *tr;
+    nd_error err;
+    char spath[4096];
+    snprintf(spath, sizeof spath, "%s", nd_test_write_temp("", ".state"));
+    c.molecule_offset = 1;
+    assert_int_equal(nd_train_new(&tr, d, path, &c, &err), ND_OK);
+    assert_int_equal(nd_train_save_state(tr, spath, &err), ND_OK);
+    nd_train_free(tr);
+    c.molecule_offset = 0.5;
+    assert_int_equal(nd_train_new(&tr, d, path, &c, &err), ND_OK);
+    assert_int_equal(nd_train_load_state(tr, spath, &err), ND_EINPUT);
+    assert_contains(err.msg, "another dataset or other settings");
+    nd_train_free(tr);
+    c.molecule_offset = 1.5;
+    assert_int_equal(nd_train_new(&tr, d, path, &c, &err), ND_EINPUT);
+    assert_contains(err.msg, "molecule offset");
+    nd_dataset_free(d);
+    remove(spath);
+    remove(moved);
+    nd_model_free(start);
+    nd_model_free(a);
+    nd_model_free(b);
+    nd_model_free(a0);
+    nd_model_free(b0);
+    nd_model_free(h);
+}
+
 /* Offsets by least squares: with energies exactly sum_e n_e e0_e, the fit
  * gives back e0 (to rounding), and the untrained networks then only add
  * their small outputs. Compositions of the generator's molecules are not
@@ -781,6 +898,7 @@ int main(void)
         cmocka_unit_test(test_rejects),
         cmocka_unit_test(test_early_stop),
         cmocka_unit_test(test_energy_window),
+        cmocka_unit_test(test_molecule_offset),
         
     };
     /* one thread unless a test asks for more: the suite shares the cores */
