@@ -1024,18 +1024,40 @@ static int split(nd_train *t, nd_error *err)
     return ND_OK;
 }
 
-/* Validation errors of predictions pe (nval) and pf (3 nval_atoms). */
+/* Validation errors of predictions pe (nval) and pf (3 nval_atoms). With a
+ * molecule offset, the loss (not the mean errors) takes each validation
+ * molecule's offset from these predictions, as the training loss does. */
 static void valid_errors(const nd_train *t, const double *pe, const double *pf, nd_train_errors *v)
 {
     double ea = 0, es = 0, fa = 0, fs = 0, ra = 0, loss = 0;
     long nf = 0, nr = 0;
+    int nk = nd_dataset_key_count(t->d);
+    double *num = NULL, *den = NULL;
+    if (t->cfg.molecule_offset > 0) {
+        num = calloc((size_t)(nk > 0 ? nk : 1), sizeof(double));
+        den = calloc((size_t)(nk > 0 ? nk : 1), sizeof(double));
+        if (num && den)
+            for (long j = 0; j < t->nval; j++) {
+                nd_dataset_entry e;
+                nd_dataset_get(t->d, t->val_idx[j], &e);
+                double w = (t->sw ? t->sw[t->val_idx[j]] : 1.0) / e.natoms;
+                int key = nd_dataset_key_index(t->d, t->val_idx[j]);
+                num[key] += w * (pe[j] - e.energy);
+                den[key] += w;
+            }
+    }
     for (long j = 0; j < t->nval; j++) {
         nd_dataset_entry e;
         nd_dataset_get(t->d, t->val_idx[j], &e);
         double dE = pe[j] - e.energy;
         ea += fabs(dE);
         es += dE * dE;
-        loss += (t->sw ? t->sw[t->val_idx[j]] : 1.0) * dE * dE / e.natoms;
+        double dl = dE;
+        if (num && den) {
+            int key = nd_dataset_key_index(t->d, t->val_idx[j]);
+            dl -= den[key] > 0 ? t->cfg.molecule_offset * num[key] / den[key] : 0;
+        }
+        loss += (t->sw ? t->sw[t->val_idx[j]] : 1.0) * dl * dl / e.natoms;
         if (e.forces)
             for (int c = 0; c < 3 * e.natoms; c++) {
                 double r = pf[t->val_off[j] + c] - e.forces[c];
@@ -1060,6 +1082,8 @@ static void valid_errors(const nd_train *t, const double *pe, const double *pf, 
     v->force_rmse = nf ? sqrt(fs / (double)nf) : NOVAL;
     v->relative_mae = nr ? ra / (double)nr : NOVAL;
     v->loss = t->nval ? loss / n + (nf ? t->cfg.force_weight * fs / (double)nf : 0) : NOVAL;
+    free(num);
+    free(den);
 }
 
 /* Predicts the validation set with member k into val_e/val_f; its errors
