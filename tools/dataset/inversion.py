@@ -41,16 +41,21 @@ from active import bond_set  # noqa: E402
 from structures import read_xyz  # noqa: E402
 
 
+def axis_rotation(k, sn, cs):
+    """Rotation matrix about unit axis k by the angle of sine sn and cosine
+    cs (Rodrigues' formula)."""
+    K = np.array([[0.0, -k[2], k[1]], [k[2], 0.0, -k[0]], [-k[1], k[0], 0.0]])
+    return np.eye(3) + sn * K + (1 - cs) * K @ K
+
+
 def rotation(a, b):
     """Rotation matrix turning unit vector a into unit vector b about their
-    common normal (Rodrigues' formula)."""
+    common normal."""
     k = np.cross(a, b)
     sn, cs = np.linalg.norm(k), float(np.dot(a, b))
     if sn < 1e-12:
         return np.eye(3)
-    k /= sn
-    K = np.array([[0.0, -k[2], k[1]], [k[2], 0.0, -k[0]], [-k[1], k[0], 0.0]])
-    return np.eye(3) + sn * K + (1 - cs) * K @ K
+    return axis_rotation(k / sn, sn, cs)
 
 
 def group(nb, start, block):
@@ -65,7 +70,10 @@ def group(nb, start, block):
     return seen
 
 
-def path(els, xyz, steps):
+def nitrogen(els, xyz):
+    """The first nitrogen with three neighbours: its index, the vectors to
+    its neighbours, the unit normal of their plane (either sign) and the
+    rigid group behind each neighbour; None when there is none."""
     nb = [[] for _ in els]
     for i, j in bond_set(els, xyz):
         nb[i].append(j)
@@ -73,13 +81,20 @@ def path(els, xyz, steps):
     centre = next((i for i, el in enumerate(els) if el == "N" and len(nb[i]) == 3), None)
     if centre is None:
         return None
-    xn, subs = xyz[centre], nb[centre]
-    u = [xyz[s] - xn for s in subs]
+    u = [xyz[s] - xyz[centre] for s in nb[centre]]
     normal = np.cross(u[1] - u[0], u[2] - u[0])
     normal /= np.linalg.norm(normal)
+    return centre, u, normal, [group(nb, s, centre) for s in nb[centre]]
+
+
+def path(els, xyz, steps):
+    found = nitrogen(els, xyz)
+    if found is None:
+        return None
+    centre, u, normal, groups = found
+    xn = xyz[centre]
     if np.dot(normal, u[0] + u[1] + u[2]) < 0:
         normal = -normal
-    groups = [group(nb, s, centre) for s in subs]
     if any(centre in g for g in groups) or len(set().union(*groups)) != sum(map(len, groups)):
         return None  # a ring through the nitrogen: no rigid groups
     frames = []
@@ -103,24 +118,14 @@ def bends(els, xyz, steps, count, max_deg, rng):
     if frames is None:
         return None
     flat = frames[(steps - 1) // 2]
-    nb = [[] for _ in els]
-    for i, j in bond_set(els, flat):
-        nb[i].append(j)
-        nb[j].append(i)
-    centre = next(i for i, el in enumerate(els) if el == "N" and len(nb[i]) == 3)
-    xn, subs = flat[centre], nb[centre]
-    u = [flat[s] - xn for s in subs]
-    normal = np.cross(u[1] - u[0], u[2] - u[0])
-    normal /= np.linalg.norm(normal)
-    groups = [group(nb, s, centre) for s in subs]
+    centre, _, normal, groups = nitrogen(els, flat)
+    xn = flat[centre]
     out = []
     for _ in range(count):
         x = flat.copy()
         for g in groups:
             ang = np.radians(rng.uniform(-max_deg, max_deg))
-            K = np.array([[0.0, -normal[2], normal[1]], [normal[2], 0.0, -normal[0]],
-                          [-normal[1], normal[0], 0.0]])
-            rot = np.eye(3) + np.sin(ang) * K + (1 - np.cos(ang)) * K @ K
+            rot = axis_rotation(normal, np.sin(ang), np.cos(ang))
             for a in g:
                 x[a] = xn + rot @ (flat[a] - xn)
         out.append(x)
