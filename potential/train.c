@@ -1024,6 +1024,34 @@ static int split(nd_train *t, nd_error *err)
     return ND_OK;
 }
 
+/* The molecule offsets of predictions pe of structures idx[0..n): per
+ * molecule key, molecule_offset times the mean of pe - E^ref over its
+ * structures among them, weighted like the loss (w_s / n_s). Returns an
+ * array of one per key (the caller frees it), or NULL if out of memory. */
+static double *key_offsets(const nd_train *t, const long *idx, long n, const double *pe)
+{
+    int nk = nd_dataset_key_count(t->d);
+    double *num = calloc((size_t)(nk > 0 ? nk : 1), sizeof(double));
+    double *den = calloc((size_t)(nk > 0 ? nk : 1), sizeof(double));
+    if (!num || !den) {
+        free(num);
+        free(den);
+        return NULL;
+    }
+    for (long j = 0; j < n; j++) {
+        nd_dataset_entry e;
+        nd_dataset_get(t->d, idx[j], &e);
+        double w = (t->sw ? t->sw[idx[j]] : 1.0) / e.natoms;
+        int key = nd_dataset_key_index(t->d, idx[j]);
+        num[key] += w * (pe[j] - e.energy);
+        den[key] += w;
+    }
+    for (int q = 0; q < nk; q++)
+        num[q] = den[q] > 0 ? t->cfg.molecule_offset * num[q] / den[q] : 0;
+    free(den);
+    return num;
+}
+
 /* Validation errors of predictions pe (nval) and pf (3 nval_atoms). With a
  * molecule offset, the loss (not the mean errors) takes each validation
  * molecule's offset from these predictions, as the training loss does. */
@@ -1031,32 +1059,14 @@ static void valid_errors(const nd_train *t, const double *pe, const double *pf, 
 {
     double ea = 0, es = 0, fa = 0, fs = 0, ra = 0, loss = 0;
     long nf = 0, nr = 0;
-    int nk = nd_dataset_key_count(t->d);
-    double *num = NULL, *den = NULL;
-    if (t->cfg.molecule_offset > 0) {
-        num = calloc((size_t)(nk > 0 ? nk : 1), sizeof(double));
-        den = calloc((size_t)(nk > 0 ? nk : 1), sizeof(double));
-        if (num && den)
-            for (long j = 0; j < t->nval; j++) {
-                nd_dataset_entry e;
-                nd_dataset_get(t->d, t->val_idx[j], &e);
-                double w = (t->sw ? t->sw[t->val_idx[j]] : 1.0) / e.natoms;
-                int key = nd_dataset_key_index(t->d, t->val_idx[j]);
-                num[key] += w * (pe[j] - e.energy);
-                den[key] += w;
-            }
-    }
+    double *koff = t->cfg.molecule_offset > 0 ? key_offsets(t, t->val_idx, t->nval, pe) : NULL;
     for (long j = 0; j < t->nval; j++) {
         nd_dataset_entry e;
         nd_dataset_get(t->d, t->val_idx[j], &e);
         double dE = pe[j] - e.energy;
         ea += fabs(dE);
         es += dE * dE;
-        double dl = dE;
-        if (num && den) {
-            int key = nd_dataset_key_index(t->d, t->val_idx[j]);
-            dl -= den[key] > 0 ? t->cfg.molecule_offset * num[key] / den[key] : 0;
-        }
+        double dl = koff ? dE - koff[nd_dataset_key_index(t->d, t->val_idx[j])] : dE;
         loss += (t->sw ? t->sw[t->val_idx[j]] : 1.0) * dl * dl / e.natoms;
         if (e.forces)
             for (int c = 0; c < 3 * e.natoms; c++) {
@@ -1082,8 +1092,7 @@ static void valid_errors(const nd_train *t, const double *pe, const double *pf, 
     v->force_rmse = nf ? sqrt(fs / (double)nf) : NOVAL;
     v->relative_mae = nr ? ra / (double)nr : NOVAL;
     v->loss = t->nval ? loss / n + (nf ? t->cfg.force_weight * fs / (double)nf : 0) : NOVAL;
-    free(num);
-    free(den);
+    free(koff);
 }
 
 /* Predicts the validation set with member k into val_e/val_f; its errors
@@ -1281,30 +1290,12 @@ static int molecule_offsets(nd_train *t, int k, nd_error *err)
     int s = runner_run(&t->run, &jb, t->train_idx, t->ntrain, EVAL_CHUNK, &tot, err);
     if (s)
         return s;
-    int nk = nd_dataset_key_count(t->d);
-    double *num = calloc((size_t)(nk > 0 ? nk : 1), sizeof(double));
-    double *den = calloc((size_t)(nk > 0 ? nk : 1), sizeof(double));
-    if (!num || !den) {
-        free(num);
-        free(den);
+    double *koff = key_offsets(t, t->train_idx, t->ntrain, t->pred_tr);
+    if (!koff)
         return nd_fail(err, ND_ENOMEM, "train: out of memory");
-    }
-    for (long q = 0; q < t->ntrain; q++) {
-        long i = t->train_idx[q];
-        nd_dataset_entry e;
-        nd_dataset_get(t->d, i, &e);
-        double w = (t->sw ? t->sw[i] : 1.0) / e.natoms; /* the loss's weight */
-        int key = nd_dataset_key_index(t->d, i);
-        num[key] += w * (t->pred_tr[q] - e.energy);
-        den[key] += w;
-    }
-    for (long q = 0; q < t->ntrain; q++) {
-        long i = t->train_idx[q];
-        int key = nd_dataset_key_index(t->d, i);
-        t->eoff[i] = den[key] > 0 ? t->cfg.molecule_offset * num[key] / den[key] : 0;
-    }
-    free(num);
-    free(den);
+    for (long q = 0; q < t->ntrain; q++)
+        t->eoff[t->train_idx[q]] = koff[nd_dataset_key_index(t->d, t->train_idx[q])];
+    free(koff);
     return ND_OK;
 }
 
