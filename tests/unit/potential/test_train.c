@@ -451,6 +451,19 @@ static void test_threads(void **state)
     nd_model_free(x);
 }
 
+/* A trainer with settings c refuses the state saved at spath by one with
+ * other settings. */
+static void assert_state_refused(nd_dataset *d, const char *path, const char *spath,
+                                 const nd_train_config *c)
+{
+    nd_train *t;
+    nd_error err;
+    assert_int_equal(nd_train_new(&t, d, path, c, &err), ND_OK);
+    assert_int_equal(nd_train_load_state(t, spath, &err), ND_EINPUT);
+    assert_contains(err.msg, "another dataset or other settings");
+    nd_train_free(t);
+}
+
 /* A state from other settings, or a damaged one, is refused. */
 static void test_resume_refused(void **state)
 {
@@ -470,10 +483,7 @@ static void test_resume_refused(void **state)
     assert_int_equal(nd_train_save_state(t, spath, &err), ND_OK);
     nd_train_free(t);
     c.batch = 5;
-    assert_int_equal(nd_train_new(&t, d, path, &c, &err), ND_OK);
-    assert_int_equal(nd_train_load_state(t, spath, &err), ND_EINPUT);
-    assert_contains(err.msg, "another dataset or other settings");
-    nd_train_free(t);
+    assert_state_refused(d, path, spath, &c);
     c.batch = 8;
     /* flip one byte in the middle: the checksum catches it */
     FILE *f = fopen(spath, "r+b");
@@ -551,10 +561,7 @@ static void test_energy_window(void **state)
     assert_int_equal(nd_train_save_state(tr, spath, &err), ND_OK);
     nd_train_free(tr);
     c.energy_window = 0;
-    assert_int_equal(nd_train_new(&tr, d, path, &c, &err), ND_OK);
-    assert_int_equal(nd_train_load_state(tr, spath, &err), ND_EINPUT);
-    assert_contains(err.msg, "another dataset or other settings");
-    nd_train_free(tr);
+    assert_state_refused(d, path, spath, &c);
     c.energy_window = -1;
     assert_int_equal(nd_train_new(&tr, d, path, &c, &err), ND_EINPUT);
     assert_contains(err.msg, "energy window");
@@ -661,10 +668,7 @@ static void test_molecule_offset(void **state)
     assert_int_equal(nd_train_save_state(tr, spath, &err), ND_OK);
     nd_train_free(tr);
     c.molecule_offset = 0.5;
-    assert_int_equal(nd_train_new(&tr, d, path, &c, &err), ND_OK);
-    assert_int_equal(nd_train_load_state(tr, spath, &err), ND_EINPUT);
-    assert_contains(err.msg, "another dataset or other settings");
-    nd_train_free(tr);
+    assert_state_refused(d, path, spath, &c);
     c.molecule_offset = 1.5;
     assert_int_equal(nd_train_new(&tr, d, path, &c, &err), ND_EINPUT);
     assert_contains(err.msg, "molecule offset");
