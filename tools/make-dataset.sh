@@ -35,6 +35,11 @@
 #              reference method's own minimum, and 24 in-plane bends of each
 #              planar frame (up to 15 degrees per substituent); without them
 #              the model never saw a planar amine nitrogen
+#   modes      basis set only: the reference Hessian at each molecule's
+#              lowest minimum (nadir modes --potential-command) and
+#              displacements along its normal modes, one mode at a time at
+#              harmonic energies of 0.3, 1.2 and 3 kcal/mol both ways, and all
+#              modes at once sampled at 300 and 900 K (tools/dataset/modes.py)
 #   scans      relaxed torsion scans (nadir optimize --scan, xtb single points)
 #              of one rotatable bond on a seeded fraction of the molecules
 #   summary    counts, element counts, energy and force ranges (summary.json),
@@ -111,7 +116,7 @@ interruption and it continues where it stopped.
   --threads N          single points run at a time (default 2; env ND_DATASET_THREADS)
   --sets LIST          which sets, of train,test,large,basis (default all
                        four; pilot: train,test)
-  --stages LIST        of conformers,torsions,thermal,relax,inversion,scans,
+  --stages LIST        of conformers,torsions,thermal,relax,inversion,modes,scans,
                        summary (default all)
   --train-molecules N  use the first N training molecules of the split (0: all)
   --test-molecules N   the first N held-out molecules (0: all)
@@ -175,7 +180,7 @@ main() {
 WORK=${ND_DATASET_DIR:-}
 SEED=${ND_DATASET_SEED:-1}
 THREADS=${ND_DATASET_THREADS:-}
-SETS="" STAGES="conformers,torsions,thermal,relax,inversion,scans,summary"
+SETS="" STAGES="conformers,torsions,thermal,relax,inversion,modes,scans,summary"
 NTRAIN="" NTEST="" NLARGE=""
 CONF="" TORS="" TH_CONF="" TH_TORS="" RELAX="" RELAX_SKIP=0 RELAX_TEST="" RELAX_LARGE="" EVERY=5 TH_MIN="" SCANFRAC="" AUDIT=3
 AUDIT_STAGES=conformers,torsions,thermal,relax SCANSTEP=30 SMALL=$ROOT/tools/molecules/small.smi LARGE=$ROOT/tools/molecules/large.smi TESTFRAC=0.1
@@ -468,6 +473,27 @@ if has "$STAGES" inversion && has "$SETS" basis && { [ ! -f "$WORK/labels/basis.
     label basis "inversion path" "$D/paths.xyz" inversion || true
     label basis "inversion path" "$D/bends.xyz" inversion-bends || true
   else say "inversion stage failed (exit $rc), see $LOG"; fi
+fi
+
+# ---------------------------------------------------------------- modes
+# The reference method's own Hessian at the lowest minimum of every basis
+# molecule (from the relax stage), and displacements along its normal modes
+# (tools/dataset/modes.py: why there); skipped whole once labelled.
+if has "$STAGES" modes && has "$SETS" basis && [ ! -f "$WORK/labels/basis.modes.done" ]; then
+  D=$WORK/gen/modes rc=0
+  mkdir -p "$D"
+  [ -s "$D/lowest.xyz" ] || $PY "$ROOT/tools/dataset/modes.py" lowest "$WORK/relax/basis.c$CONF.r$RELAX_LARGE" \
+      "$D/lowest.xyz" 2>>"$LOG" || rc=$?
+  if [ $rc = 0 ] && [ ! -s "$D/modes.json" ]; then
+    OMP_NUM_THREADS=$THREADS "$NADIR" modes "$D/lowest.xyz" --potential-command "$REF" --json \
+        --animate all --animate-out "$D/animation.xyz" --frames 4 </dev/null >"$D/modes.json.tmp" 2>"$D/modes.log" || rc=$?
+    [ $rc = 5 ] && { say "modes: some Hessians failed, see $D/modes.log"; rc=0; }
+    [ $rc = 0 ] && mv "$D/modes.json.tmp" "$D/modes.json"
+  fi
+  [ $rc = 0 ] && { [ -s "$D/displaced.xyz" ] || $PY "$ROOT/tools/dataset/modes.py" displace "$D/lowest.xyz" \
+      "$D/animation.xyz" "$D/modes.json" "$D/displaced.xyz" --seed "$SEED" 2>>"$LOG" || rc=$?; }
+  if [ $rc = 0 ]; then label basis "normal mode" "$D/displaced.xyz" modes || true
+  else say "modes stage failed (exit $rc), see $LOG"; fi
 fi
 
 # ---------------------------------------------------------------- scans
