@@ -22,6 +22,7 @@ import tempfile
 import numpy as np
 
 sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), "helpers"))
+from xyzfiles import read_xyz, write_xyz  # noqa: E402
 from bundled import ROOT, Tap  # noqa: E402
 
 TOOL = os.path.join(ROOT, "tools", "dataset", "inversion.py")
@@ -53,25 +54,6 @@ def methylamine():
         d = 0.36 * u + 1.03 * (math.cos(t) * p + math.sin(t) * q)
         hs.append(("H", list(c + d)))
     return [atoms[0], ("C", list(c)), atoms[2], atoms[3]] + hs
-
-
-def write_xyz(path, mols):
-    with open(path, "w") as f:
-        for title, atoms in mols:
-            f.write("%d\n%s\n" % (len(atoms), title))
-            for el, x in atoms:
-                f.write("%s %.10f %.10f %.10f\n" % (el, x[0], x[1], x[2]))
-
-
-def read_xyz(path):
-    out, lines, i = [], open(path).read().split("\n"), 0
-    while i < len(lines) and lines[i].strip():
-        n = int(lines[i])
-        title = lines[i + 1]
-        x = np.array([[float(v) for v in ln.split()[1:4]] for ln in lines[i + 2:i + 2 + n]])
-        out.append((title, x))
-        i += 2 + n
-    return out
 
 
 def height(x, centre, nbrs):

@@ -22,6 +22,7 @@ import tempfile
 import numpy as np
 
 sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), "helpers"))
+from xyzfiles import read_xyz, write_xyz  # noqa: E402
 from bundled import NADIR, ROOT, Tap  # noqa: E402
 
 TOOL = os.path.join(ROOT, "tools", "dataset", "modes.py")
@@ -54,24 +55,6 @@ def springs(x):
 
 def energy(pairs, x):
     return sum(0.5 * k * (np.linalg.norm(x[i] - x[j]) - r0) ** 2 for i, j, k, r0 in pairs)
-
-
-def write_xyz(path, mols):
-    with open(path, "w") as f:
-        for title, atoms in mols:
-            f.write("%d\n%s\n" % (len(atoms), title))
-            for el, x in atoms:
-                f.write("%s %.10f %.10f %.10f\n" % (el, x[0], x[1], x[2]))
-
-
-def read_xyz(path):
-    out, lines, i = [], open(path).read().split("\n"), 0
-    while i < len(lines) and lines[i].strip():
-        n = int(lines[i])
-        x = np.array([[float(v) for v in ln.split()[1:4]] for ln in lines[i + 2:i + 2 + n]])
-        out.append((lines[i + 1].strip(), x))
-        i += 2 + n
-    return out
 
 
 def run(args):
