@@ -15,7 +15,7 @@
 static const char *CMD = "train";
 
 typedef struct {
-    const char *data, *output, *state, *start;
+    const char *data, *output, *state, *start, *always;
     int threads, resume, skip_bad, cache, quiet;
     int shape_given; /* --elements, --layers or --members was given */
     nd_train_config cfg;
@@ -69,6 +69,9 @@ static void usage(FILE *f)
             "                           molecule's absolute level free, so energies of\n"
             "                           different molecules compare less well; default 0)\n"
             "  --validation-fraction F  fraction of the molecules held out (default %g)\n"
+            "  --always-train KEYS      a file of molecule keys (one per line, # comments)\n"
+            "                           that always train and are never held out, such as\n"
+            "                           small molecules that alone teach an environment\n"
             "  --learning-rate R        initial Adam step (default %g)\n"
             "  --learning-rate-floor R  the rate never halves below R (default %g)\n"
             "  --patience N             a member stops after N epochs without a better\n"
@@ -158,7 +161,7 @@ static int parse(int argc, char **argv, train_options *o)
 {
     enum { O_ELEM = 256, O_LAYERS, O_MEMBERS, O_EPOCHS, O_BATCH, O_FW, O_VF, O_LR, O_LRF, O_PAT,
            O_RPAT, O_WD, O_SEED, O_THREADS, O_STATE, O_RESUME, O_SKIP, O_CACHE, O_QUIET, O_START,
-           O_EW, O_MO };
+           O_EW, O_MO, O_ALWAYS };
     static const struct option longopts[] = {{"output", required_argument, NULL, 'o'},
                                               {"elements", required_argument, NULL, O_ELEM},
                                               {"layers", required_argument, NULL, O_LAYERS},
@@ -169,6 +172,7 @@ static int parse(int argc, char **argv, train_options *o)
                                               {"energy-window", required_argument, NULL, O_EW},
                                               {"molecule-offset", required_argument, NULL, O_MO},
                                               {"validation-fraction", required_argument, NULL, O_VF},
+                                              {"always-train", required_argument, NULL, O_ALWAYS},
                                               {"learning-rate", required_argument, NULL, O_LR},
                                               {"learning-rate-floor", required_argument, NULL, O_LRF},
                                               {"patience", required_argument, NULL, O_PAT},
@@ -279,6 +283,7 @@ static int parse(int argc, char **argv, train_options *o)
             break;
         }
         case O_STATE: o->state = optarg; break;
+        case O_ALWAYS: o->always = optarg; break;
         case O_START: o->start = optarg; break;
         case O_RESUME: o->resume = 1; break;
         case O_SKIP: o->skip_bad = 1; break;
@@ -299,6 +304,75 @@ static int parse(int argc, char **argv, train_options *o)
         return cli_usage(CMD, "--learning-rate-floor %g is above --learning-rate %g",
                          o->cfg.min_learning_rate, o->cfg.learning_rate);
     return 0;
+}
+
+/* The keys of an --always-train file: one per line, surrounding blanks
+ * dropped, empty lines and lines starting with # skipped. *buf holds the
+ * text and *keys points into it; the caller frees both. */
+static int read_keys(const char *path, char **buf, const char ***keys, int *n, nd_error *err)
+{
+    *buf = NULL;
+    *keys = NULL;
+    *n = 0;
+    FILE *f = fopen(path, "rb");
+    if (!f)
+        return nd_fail(err, ND_EIO, "--always-train %s: cannot open it", path);
+    size_t cap = 4096, len = 0;
+    char *text = malloc(cap + 1);
+    size_t got;
+    while (text && (got = fread(text + len, 1, cap - len, f)) > 0) {
+        len += got;
+        if (len == cap && len < ((size_t)64 << 20)) {
+            char *bigger = realloc(text, 2 * cap + 1);
+            if (!bigger) {
+                free(text);
+                text = NULL;
+                break;
+            }
+            text = bigger;
+            cap *= 2;
+        } else if (len == cap)
+            break;
+    }
+    int bad = ferror(f);
+    fclose(f);
+    if (!text)
+        return nd_fail(err, ND_ENOMEM, "--always-train %s: out of memory", path);
+    if (bad || len == cap) {
+        free(text);
+        return nd_fail(err, ND_EIO, "--always-train %s: %s", path,
+                       bad ? "read error" : "larger than 64 MB; expected a list of keys");
+    }
+    text[len] = 0;
+    int lines = 1;
+    for (size_t i = 0; i < len; i++)
+        lines += text[i] == '\n';
+    const char **k = malloc((size_t)lines * sizeof *k);
+    if (!k) {
+        free(text);
+        return nd_fail(err, ND_ENOMEM, "--always-train %s: out of memory", path);
+    }
+    int count = 0;
+    for (char *p = text; p && *p;) {
+        char *end = strchr(p, '\n');
+        if (end)
+            *end = 0;
+        while (*p == ' ' || *p == '\t')
+            p++;
+        size_t l = strlen(p);
+        while (l > 0 && (p[l - 1] == ' ' || p[l - 1] == '\t' || p[l - 1] == '\r'))
+            p[--l] = 0;
+        int seen = 0;
+        for (int q = 0; q < count && !seen; q++)
+            seen = strcmp(k[q], p) == 0;
+        if (l > 0 && p[0] != '#' && !seen)
+            k[count++] = p;
+        p = end ? end + 1 : NULL;
+    }
+    *buf = text;
+    *keys = k;
+    *n = count;
+    return ND_OK;
 }
 
 /* "1:02:03" or "2:03" for seconds. */
@@ -400,9 +474,20 @@ int cmd_train(int argc, char **argv)
     if (rep.bad_lines)
         fprintf(stderr, "nadir train: skipped %ld bad lines; the first: %s\n", rep.bad_lines,
                 rep.first_bad);
+    char *keytext = NULL;
+    const char **keys = NULL;
+    if (o.always) {
+        if ((s = read_keys(o.always, &keytext, &keys, &o.cfg.always_train_count, &err))) {
+            nd_dataset_free(d);
+            return cli_error(CMD, &err);
+        }
+        o.cfg.always_train = keys;
+    }
     nd_model *from = NULL;
     if (o.start) {
         if ((s = nd_model_load(o.start, &from, &err))) {
+            free(keys);
+            free(keytext);
             nd_dataset_free(d);
             return cli_error(CMD, &err);
         }
@@ -414,6 +499,10 @@ int cmd_train(int argc, char **argv)
     s = nd_train_new(&t, d, o.data, &o.cfg, &err);
     nd_model_free(from);
     o.cfg.start = NULL;
+    int nkeys = o.cfg.always_train_count;
+    free(keys);
+    free(keytext);
+    o.cfg.always_train = NULL;
     if (s) {
         nd_dataset_free(d);
         return cli_error(CMD, &err);
@@ -440,6 +529,13 @@ int cmd_train(int argc, char **argv)
             fprintf(stderr, "nadir train: resuming after epoch %d from %s\n",
                     nd_train_epochs_done(t), state);
     }
+    if (o.always && !o.quiet)
+        fprintf(stderr, "nadir train: %d of the %d keys of %s are in the dataset; they train and "
+                "are never held out\n", si.always_train_matched, nkeys, o.always);
+    if (o.always && si.always_train_matched < nkeys)
+        fprintf(stderr, "nadir train: warning: %d key%s of %s %s not in the dataset\n",
+                nkeys - si.always_train_matched, nkeys - si.always_train_matched == 1 ? "" : "s",
+                o.always, nkeys - si.always_train_matched == 1 ? "is" : "are");
     split_warnings(t, d, &si, o.cfg.validation_fraction);
     double before = nd_train_elapsed(t), start = nd_progress_clock();
     int done0 = nd_train_epochs_done(t);

@@ -587,6 +587,7 @@ struct nd_train {
     double *eoff, *pred_tr;                 /* molecule offsets per structure, predictions
                                              * of the training set (molecule_offset > 0) */
     int ntrain_mol, nval_mol;
+    int always_matched;      /* molecules of cfg.always_train found in the dataset */
     double *theta, *best, *am, *av, *grad; /* K x P each (grad: P) */
     member *mem;
     double *val_e, *val_f;                  /* K x nval, K x 3 nval_atoms */
@@ -979,6 +980,19 @@ static int split(nd_train *t, nd_error *err)
         nv = 0;
     for (int q = 0; q < nv; q++)
         isval[perm[q]] = 1;
+    t->always_matched = 0;
+    for (int q = 0; q < nk; q++) {
+        const char *key = nd_dataset_key_name(d, q);
+        for (int a = 0; a < t->cfg.always_train_count; a++)
+            if (key && t->cfg.always_train[a] && strcmp(key, t->cfg.always_train[a]) == 0) {
+                t->always_matched++;
+                if (isval[q]) {
+                    isval[q] = 0;
+                    nv--;
+                }
+                break;
+            }
+    }
     t->nval_mol = nv;
     t->ntrain_mol = nk - nv;
     for (long s = 0; s < n; s++) {
@@ -1193,6 +1207,8 @@ int nd_train_new(nd_train **out, const nd_dataset *data, const char *data_name,
         if ((s = split(t, err)) || (s = fit_offsets(t, err)) || (s = fit_scaling(t, err)))
             goto fail;
     }
+    t->cfg.always_train = NULL; /* the caller's strings: used by split() only */
+    t->cfg.always_train_count = 0;
     if (t->cfg.energy_window > 0) {
         long n = nd_dataset_count(data);
         unsigned char *mask = calloc((size_t)n, 1);
@@ -1505,6 +1521,7 @@ void nd_train_split(const nd_train *t, nd_train_split_info *info)
     info->valid_structures = t->nval;
     info->train_molecules = t->ntrain_mol;
     info->valid_molecules = t->nval_mol;
+    info->always_train_matched = t->always_matched;
 }
 
 const long *nd_train_training_set(const nd_train *t, long *n)
@@ -1797,6 +1814,8 @@ int nd_train_model(const nd_train *t, nd_model **out, nd_error *err)
     cJSON_AddNumberToObject(sp, "training_molecules", t->ntrain_mol);
     cJSON_AddNumberToObject(sp, "validation_structures", (double)t->nval);
     cJSON_AddNumberToObject(sp, "validation_molecules", t->nval_mol);
+    if (t->always_matched > 0)
+        cJSON_AddNumberToObject(sp, "molecules_always_trained", t->always_matched);
     tr = cJSON_AddObjectToObject(o, "training");
     cJSON_AddNumberToObject(tr, "epochs", t->epoch);
     cJSON_AddNumberToObject(tr, "epoch_limit", t->cfg.epochs);

@@ -89,6 +89,15 @@ typedef struct nd_train_config {
      * fraction of the cost of training from random weights. */
     const struct nd_model *start;
     const char *start_name;                 /* its file, for the provenance; may be NULL */
+    /* Molecule keys that always go to the training side of the split (the
+     * caller's strings; NULL or 0: none), such as the small molecules of a
+     * basis set that teach environments no other molecule has: held out by
+     * chance, their environments would never be learned. The seeded split
+     * is drawn as without them and the listed ones are then moved out of
+     * validation, so the other molecules stay where they were. Keys not in
+     * the dataset are ignored (nd_train_split reports how many matched). */
+    const char *const *always_train;
+    int always_train_count;
 } nd_train_config;
 
 void nd_train_config_defaults(nd_train_config *c);
@@ -135,6 +144,7 @@ typedef struct nd_train_epoch_report {
 typedef struct nd_train_split_info {
     long train_structures, valid_structures;
     int train_molecules, valid_molecules;
+    int always_train_matched;   /* keys of cfg.always_train found in the dataset */
 } nd_train_split_info;
 
 typedef struct nd_train nd_train;

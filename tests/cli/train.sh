@@ -154,6 +154,13 @@ printf '3\nwat\nO 0 0 0\nH 0.96 0 0.01\nH -0.24 0.93 0.02\n3\nwat\nO 0 0 0.01\nH
 check "train on two molecules" "$NADIR" train "$T/two.jsonl" -o "$T/two.model" --layers 4 --members 1 --epochs 1 --threads 1 --quiet
 grep -q "held out for validation, more than the --validation-fraction" "$T/err" && ok "oversized validation share warned" || not_ok "no warning on the split" "$(cat "$T/err")"
 grep -qE "element (N|O) is only in validation molecules" "$T/err" && ok "validation-only element warned" || not_ok "no warning on the element" "$(cat "$T/err")"
+# --always-train: both molecules train (none held out), and an unknown key is named
+printf '# the two\nwat\n  nn \nwat\nnot-there\n' > "$T/keys.txt"
+check "train with --always-train" "$NADIR" train "$T/two.jsonl" -o "$T/two.model" --layers 4 --members 1 --epochs 1 --threads 1 --always-train "$T/keys.txt"
+grep -q "validation 0 (0 molecules)" "$T/err" && ok "--always-train kept both molecules out of validation" || not_ok "--always-train split" "$(cat "$T/err")"
+grep -q "2 of the 3 keys of .*keys.txt are in the dataset" "$T/err" && ok "--always-train counted its keys (a repeated key once)" || not_ok "--always-train count" "$(cat "$T/err")"
+grep -q "warning: 1 key of .*keys.txt is not in the dataset" "$T/err" && ok "--always-train warned of the unknown key" || not_ok "--always-train unknown key" "$(cat "$T/err")"
+check_fails "--always-train with a missing file" 3 "nope.txt: cannot open it" "$NADIR" train "$T/two.jsonl" --always-train "$T/nope.txt"
 head -1 "$T/two.jsonl" > "$T/header-only.jsonl"
 check_fails "evaluate on a dataset without structures" 3 "has no structures" "$NADIR" evaluate "$T/two.model" "$T/header-only.jsonl"
 finish

@@ -888,6 +888,68 @@ static void test_early_stop(void **state)
     nd_dataset_free(d);
 }
 
+/* --always-train: the listed molecules leave validation for training, the
+ * rest of the seeded split stays as it was, and a key not in the dataset is
+ * counted as unmatched. */
+static void test_always_train(void **state)
+{
+    (void)state;
+    int made;
+    const char *path = make_dataset(16, 2, 0.06, 20, 5, &made);
+    nd_dataset *d = load(path);
+    nd_train_config c;
+    small_config(&c);
+    c.validation_fraction = 0.25;
+    nd_train *plain, *kept;
+    nd_error err;
+    assert_int_equal(nd_train_new(&plain, d, path, &c, &err), ND_OK);
+    long ntr, nva;
+    const long *va = nd_train_validation_set(plain, &nva);
+    unsigned char was_val[64] = {0};
+    for (long q = 0; q < nva; q++)
+        was_val[nd_dataset_key_index(d, va[q])] = 1;
+    const char *list[3];
+    int listed = 0;
+    for (int k = 0; k < nd_dataset_key_count(d) && listed < 2; k++)
+        if (was_val[k])
+            list[listed++] = nd_dataset_key_name(d, k);
+    assert_int_equal(listed, 2);
+    list[2] = "no-such-molecule";
+    c.always_train = list;
+    c.always_train_count = 3;
+    assert_int_equal(nd_train_new(&kept, d, path, &c, &err), ND_OK);
+    nd_train_split_info a, b;
+    nd_train_split(plain, &a);
+    nd_train_split(kept, &b);
+    assert_int_equal(a.valid_molecules, 4);
+    assert_int_equal(b.valid_molecules, 2);
+    assert_int_equal(b.train_molecules, a.train_molecules + 2);
+    assert_int_equal(b.always_train_matched, 2);
+    assert_int_equal(b.valid_structures + b.train_structures, nd_dataset_count(d));
+    unsigned char is_val[64] = {0};
+    va = nd_train_validation_set(kept, &nva);
+    for (long q = 0; q < nva; q++)
+        is_val[nd_dataset_key_index(d, va[q])] = 1;
+    const long *tr = nd_train_training_set(kept, &ntr);
+    for (long q = 0; q < ntr; q++)
+        assert_false(is_val[nd_dataset_key_index(d, tr[q])]);
+    for (int k = 0; k < nd_dataset_key_count(d); k++) {
+        int listed_k = strcmp(nd_dataset_key_name(d, k), list[0]) == 0 ||
+                       strcmp(nd_dataset_key_name(d, k), list[1]) == 0;
+        assert_int_equal(is_val[k], listed_k ? 0 : was_val[k]);
+    }
+    nd_model *m;
+    assert_int_equal(nd_train_model(kept, &m, &err), ND_OK);
+    cJSON *prov = cJSON_Parse(nd_model_provenance(m));
+    const cJSON *sp = cJSON_GetObjectItemCaseSensitive(prov, "split");
+    assert_int_equal(cJSON_GetObjectItemCaseSensitive(sp, "molecules_always_trained")->valueint, 2);
+    cJSON_Delete(prov);
+    nd_model_free(m);
+    nd_train_free(plain);
+    nd_train_free(kept);
+    nd_dataset_free(d);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -895,6 +957,7 @@ int main(void)
         cmocka_unit_test(test_gradient_force_term),
         cmocka_unit_test(test_gradient_sum),
         cmocka_unit_test(test_known_answer),
+        cmocka_unit_test(test_always_train),
         cmocka_unit_test(test_resume),
         cmocka_unit_test(test_threads),
         cmocka_unit_test(test_resume_refused),
