@@ -395,6 +395,7 @@ static void print_table(int rec, const nd_molecule *mol, const nd_search *s, int
     if (free_energy)
         printf("  %9s", "rel.G");
     printf("  %7s  %11s  %11s  %s\n", "weight", "lowest freq", "uncertainty", "notes");
+    int any_noise = 0;
     for (int r = 0; r < nd_search_count(s); r++) {
         const nd_conformer *f = nd_search_conformer(s, r);
         printf("  %4d  %16.4f  %9.3f", r + 1, f->energy, f->rel_energy);
@@ -410,13 +411,26 @@ static void print_table(int rec, const nd_molecule *mol, const nd_search *s, int
             len += (size_t)snprintf(notes, sizeof notes, "mirror image of %d", f->mirror_of + 1);
         if (f->repaired && len < sizeof notes)
             len += (size_t)snprintf(notes + len, sizeof notes - len, "%srepaired", len ? "; " : "");
+        /* a confirmed minimum may keep a noise-level negative frequency
+         * (optimize/modes.h): say so, or the column reads as a saddle */
+        if (f->checked && f->lowest_freq < 0 && len < sizeof notes) {
+            len += (size_t)snprintf(notes + len, sizeof notes - len, "%snoise-level mode",
+                                    len ? "; " : "");
+            any_noise = 1;
+        }
         if (f->uncertain && len < sizeof notes)
             snprintf(notes + len, sizeof notes - len, "%smodel unsure", len ? "; " : "");
         printf("  %7.4f  %11.1f  %11s  %s\n", f->weight, f->lowest_freq, unc, notes);
     }
     printf("  energies in kcal/mol; %s in kcal/mol relative to the lowest; Boltzmann weights at "
-           "%.2f K; frequencies in cm^-1\n\n",
+           "%.2f K; frequencies in cm^-1\n",
            free_energy ? "rel.E and rel.G" : "rel.E", temperature);
+    if (any_noise)
+        printf("  noise-level mode: an imaginary frequency below %.0f cm^-1 at a converged structure, "
+               "within the\n  finite-difference Hessian's noise: still counted a minimum (left out "
+               "of the thermochemistry)\n",
+               ND_MODES_NOISE_FREQ);
+    printf("\n");
 }
 
 /* Runs the whole search of one molecule, with a progress line on a

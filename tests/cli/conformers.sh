@@ -132,4 +132,24 @@ if grep -q "<batch_code>" "$T/c.sdf" && grep -q "QX-17" "$T/c.sdf" && grep -q "<
 printf '3\nclash\nO 0 0 0\nH 0 0 0\nH 1 0 0\n' > "$TAP_TMP/clash.xyz"
 check_fails "coincident atoms: input error naming them" 3 "atoms 1 and 2 are only 0.000 A apart" \
   "$NADIR" conformers "$TAP_TMP/clash.xyz" --potential-command "$PWD/tests/cli/morse_potential.py"
+# A confirmed minimum may keep a noise-level negative frequency (below 30
+# cm^-1, optimize/modes.h); the table must say so on exactly those rows, and
+# explain the note under the table, or the column reads as a saddle.
+check "chlorobutanoic acid with the bundled model" "$NADIR" conformers 'OC(=O)CCCCl cba' --seed 1 --threads 1 --report "$T/cba.json"
+if /usr/bin/python3 - "$T/cba.json" "$TAP_TMP/out" <<'PY'
+import json, sys
+confs = json.load(open(sys.argv[1]))["molecules"][0]["conformers"]
+rows = [l for l in open(sys.argv[2]) if l.strip()[:1].isdigit() and len(l.split()) >= 6]
+assert len(rows) == len(confs), (len(rows), len(confs))
+noisy = 0
+for c, row in zip(confs, rows):
+    neg = c["confirmed_minimum"] and c["lowest_frequency"] < 0
+    assert neg == ("noise-level mode" in row), (c["rank"], c["lowest_frequency"], row)
+    noisy += neg
+text = open(sys.argv[2]).read()
+assert (noisy > 0) == ("noise-level mode: an imaginary frequency below 30" in text)
+print("# %d of %d conformers with a noise-level mode" % (noisy, len(confs)))
+PY
+then ok "noise-level imaginary modes are noted on their rows and explained"; else not_ok "noise-level mode notes"; fi
+
 finish
