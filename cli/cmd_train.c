@@ -4,6 +4,7 @@
  * command prints the progress line, writes the checkpoint after every
  * epoch, and writes the model at the end. */
 #include "cli/cli.h"
+#include "core/lineio.h"
 
 #include <getopt.h>
 #include <math.h>
@@ -306,70 +307,61 @@ static int parse(int argc, char **argv, train_options *o)
     return 0;
 }
 
-/* The keys of an --always-train file: one per line, surrounding blanks
- * dropped, empty lines and lines starting with # skipped. *buf holds the
- * text and *keys points into it; the caller frees both. */
-static int read_keys(const char *path, char **buf, const char ***keys, int *n, nd_error *err)
+/* Frees the n keys of read_keys and their array; accepts NULL. */
+static void free_keys(char **keys, int n)
 {
-    *buf = NULL;
+    for (int q = 0; q < n && keys; q++)
+        free(keys[q]);
+    free(keys);
+}
+
+/* The keys of an --always-train file: one per line, surrounding blanks
+ * dropped, empty lines, lines starting with # and repeats skipped. Free
+ * *keys with free_keys. */
+static int read_keys(const char *path, char ***keys, int *n, nd_error *err)
+{
     *keys = NULL;
     *n = 0;
     FILE *f = fopen(path, "rb");
     if (!f)
         return nd_fail(err, ND_EIO, "--always-train %s: cannot open it", path);
-    size_t cap = 4096, len = 0;
-    char *text = malloc(cap + 1);
-    size_t got;
-    while (text && (got = fread(text + len, 1, cap - len, f)) > 0) {
-        len += got;
-        if (len == cap && len < ((size_t)64 << 20)) {
-            char *bigger = realloc(text, 2 * cap + 1);
-            if (!bigger) {
-                free(text);
-                text = NULL;
-                break;
-            }
-            text = bigger;
-            cap *= 2;
-        } else if (len == cap)
-            break;
-    }
-    int bad = ferror(f);
-    fclose(f);
-    if (!text)
-        return nd_fail(err, ND_ENOMEM, "--always-train %s: out of memory", path);
-    if (bad || len == cap) {
-        free(text);
-        return nd_fail(err, ND_EIO, "--always-train %s: %s", path,
-                       bad ? "read error" : "larger than 64 MB; expected a list of keys");
-    }
-    text[len] = 0;
-    int lines = 1;
-    for (size_t i = 0; i < len; i++)
-        lines += text[i] == '\n';
-    const char **k = malloc((size_t)lines * sizeof *k);
-    if (!k) {
-        free(text);
-        return nd_fail(err, ND_ENOMEM, "--always-train %s: out of memory", path);
-    }
-    int count = 0;
-    for (char *p = text; p && *p;) {
-        char *end = strchr(p, '\n');
-        if (end)
-            *end = 0;
+    nd_lines l;
+    nd_lines_init(&l, path, "line", NULL, 0, f);
+    char **k = NULL;
+    int count = 0, cap = 0, s;
+    while ((s = nd_lines_next(&l, err)) == ND_OK) {
+        char *p = l.buf;
         while (*p == ' ' || *p == '\t')
             p++;
-        size_t l = strlen(p);
-        while (l > 0 && (p[l - 1] == ' ' || p[l - 1] == '\t' || p[l - 1] == '\r'))
-            p[--l] = 0;
-        int seen = 0;
-        for (int q = 0; q < count && !seen; q++)
-            seen = strcmp(k[q], p) == 0;
-        if (l > 0 && p[0] != '#' && !seen)
-            k[count++] = p;
-        p = end ? end + 1 : NULL;
+        size_t len = strlen(p);
+        while (len > 0 && (p[len - 1] == ' ' || p[len - 1] == '\t' || p[len - 1] == '\r'))
+            p[--len] = 0;
+        int skip = len == 0 || p[0] == '#';
+        for (int q = 0; q < count && !skip; q++)
+            skip = strcmp(k[q], p) == 0;
+        if (skip)
+            continue;
+        if (count == cap) {
+            cap = cap ? 2 * cap : 64;
+            char **bigger = realloc(k, (size_t)cap * sizeof *k);
+            if (!bigger) {
+                s = nd_fail(err, ND_ENOMEM, "--always-train %s: out of memory", path);
+                break;
+            }
+            k = bigger;
+        }
+        if (!(k[count] = strdup(p))) {
+            s = nd_fail(err, ND_ENOMEM, "--always-train %s: out of memory", path);
+            break;
+        }
+        count++;
     }
-    *buf = text;
+    nd_lines_free(&l);
+    fclose(f);
+    if (s != ND_END) {
+        free_keys(k, count);
+        return s;
+    }
     *keys = k;
     *n = count;
     return ND_OK;
@@ -474,20 +466,18 @@ int cmd_train(int argc, char **argv)
     if (rep.bad_lines)
         fprintf(stderr, "nadir train: skipped %ld bad lines; the first: %s\n", rep.bad_lines,
                 rep.first_bad);
-    char *keytext = NULL;
-    const char **keys = NULL;
+    char **keys = NULL;
     if (o.always) {
-        if ((s = read_keys(o.always, &keytext, &keys, &o.cfg.always_train_count, &err))) {
+        if ((s = read_keys(o.always, &keys, &o.cfg.always_train_count, &err))) {
             nd_dataset_free(d);
             return cli_error(CMD, &err);
         }
-        o.cfg.always_train = keys;
+        o.cfg.always_train = (const char *const *)keys;
     }
     nd_model *from = NULL;
     if (o.start) {
         if ((s = nd_model_load(o.start, &from, &err))) {
-            free(keys);
-            free(keytext);
+            free_keys(keys, o.cfg.always_train_count);
             nd_dataset_free(d);
             return cli_error(CMD, &err);
         }
@@ -500,8 +490,7 @@ int cmd_train(int argc, char **argv)
     nd_model_free(from);
     o.cfg.start = NULL;
     int nkeys = o.cfg.always_train_count;
-    free(keys);
-    free(keytext);
+    free_keys(keys, nkeys);
     o.cfg.always_train = NULL;
     if (s) {
         nd_dataset_free(d);

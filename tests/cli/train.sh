@@ -161,6 +161,8 @@ grep -q "validation 0 (0 molecules)" "$T/err" && ok "--always-train kept both mo
 grep -q "2 of the 3 keys of .*keys.txt are in the dataset" "$T/err" && ok "--always-train counted its keys (a repeated key once)" || not_ok "--always-train count" "$(cat "$T/err")"
 grep -q "warning: 1 key of .*keys.txt is not in the dataset" "$T/err" && ok "--always-train warned of the unknown key" || not_ok "--always-train unknown key" "$(cat "$T/err")"
 check_fails "--always-train with a missing file" 3 "nope.txt: cannot open it" "$NADIR" train "$T/two.jsonl" --always-train "$T/nope.txt"
+printf 'wat\0nn\n' > "$T/binary-keys.txt"
+check_fails "--always-train with a binary file names its line" 3 "binary-keys.txt, line 1" "$NADIR" train "$T/two.jsonl" --always-train "$T/binary-keys.txt"
 head -1 "$T/two.jsonl" > "$T/header-only.jsonl"
 check_fails "evaluate on a dataset without structures" 3 "has no structures" "$NADIR" evaluate "$T/two.model" "$T/header-only.jsonl"
 finish
