@@ -133,8 +133,9 @@ interruption and it continues where it stopped.
   --relax-test N       conformers relaxed per held-out molecule (default 8:
                        their distinct minima give the relative conformer
                        energies and rank correlations of the evaluation)
-  --relax-large N      conformers relaxed per molecule of the large and
-                       basis sets (default 4)
+  --relax-large N      conformers relaxed per larger molecule (default 3: 180
+                       relaxations of molecules of 57 atoms on average)
+  --relax-basis N      conformers relaxed per basis molecule (default 4)
   --every K            keep every K-th frame of a relaxation path (default 5)
   --thermal-minimum N  small displacements about each minimum (default 2)
   --scan-fraction F    fraction of molecules with a torsion scan (default 0.06)
@@ -182,7 +183,7 @@ SEED=${ND_DATASET_SEED:-1}
 THREADS=${ND_DATASET_THREADS:-}
 SETS="" STAGES="conformers,torsions,thermal,relax,inversion,modes,scans,summary"
 NTRAIN="" NTEST="" NLARGE=""
-CONF="" TORS="" TH_CONF="" TH_TORS="" RELAX="" RELAX_SKIP=0 RELAX_TEST="" RELAX_LARGE="" EVERY=5 TH_MIN="" SCANFRAC="" AUDIT=3
+CONF="" TORS="" TH_CONF="" TH_TORS="" RELAX="" RELAX_SKIP=0 RELAX_TEST="" RELAX_LARGE="" RELAX_BASIS="" EVERY=5 TH_MIN="" SCANFRAC="" AUDIT=3
 AUDIT_STAGES=conformers,torsions,thermal,relax SCANSTEP=30 SMALL=$ROOT/tools/molecules/small.smi LARGE=$ROOT/tools/molecules/large.smi TESTFRAC=0.1
 BASIS=$ROOT/tools/molecules/basis.smi INVERSION=$ROOT/tools/molecules/inversion.smi
 PILOT=0 STORE=""
@@ -211,6 +212,7 @@ while [ $# -gt 0 ]; do
     --thermal-minimum) TH_MIN=$2 ;;
     --relax-test) RELAX_TEST=$2 ;;
     --relax-large) RELAX_LARGE=$2 ;;
+    --relax-basis) RELAX_BASIS=$2 ;;
     --scan-fraction) SCANFRAC=$2 ;;
     --audit) AUDIT=$2 ;;
     --scan-step) SCANSTEP=$2 ;;
@@ -227,13 +229,13 @@ done
 if [ $PILOT = 1 ]; then
   : "${WORK:=$ROOT/data/pilot}" "${THREADS:=1}" "${SETS:=train,test}"
   : "${NTRAIN:=400}" "${NTEST:=40}" "${NLARGE:=0}"
-  : "${CONF:=4}" "${TORS:=2}" "${TH_CONF:=1}" "${TH_TORS:=1}" "${RELAX:=1}" "${RELAX_TEST:=4}" "${RELAX_LARGE:=4}" "${TH_MIN:=1}" "${SCANFRAC:=0}"
+  : "${CONF:=4}" "${TORS:=2}" "${TH_CONF:=1}" "${TH_TORS:=1}" "${RELAX:=1}" "${RELAX_TEST:=4}" "${RELAX_LARGE:=3}" "${RELAX_BASIS:=4}" "${TH_MIN:=1}" "${SCANFRAC:=0}"
   AUDIT=2
 else
   [ -n "$WORK" ] || : "${STORE:=$ROOT/labels}"
   : "${WORK:=$ROOT/data/dataset}" "${THREADS:=2}" "${SETS:=train,test,large,basis}"
   : "${NTRAIN:=0}" "${NTEST:=0}" "${NLARGE:=0}"
-  : "${CONF:=8}" "${TORS:=8}" "${TH_CONF:=3}" "${TH_TORS:=2}" "${RELAX:=1}" "${RELAX_TEST:=8}" "${RELAX_LARGE:=4}" "${TH_MIN:=2}" "${SCANFRAC:=0.06}"
+  : "${CONF:=8}" "${TORS:=8}" "${TH_CONF:=3}" "${TH_TORS:=2}" "${RELAX:=1}" "${RELAX_TEST:=8}" "${RELAX_LARGE:=3}" "${RELAX_BASIS:=4}" "${TH_MIN:=2}" "${SCANFRAC:=0.06}"
 fi
 case $RELAX_SKIP in ''|*[!0-9]*) echo "make-dataset: --relax-skip wants a whole number, not '$RELAX_SKIP'" >&2; exit 2 ;; esac
 NADIR=${NADIR:-$ROOT/build/nadir}
@@ -382,7 +384,7 @@ if has "$STAGES" relax; then
   # costliest) last
   for s in test basis train large; do
     has "$SETS" $s || continue
-    case $s in train) RELAX_S=$RELAX ;; test) RELAX_S=$RELAX_TEST ;; *) RELAX_S=$RELAX_LARGE ;; esac
+    case $s in train) RELAX_S=$RELAX ;; test) RELAX_S=$RELAX_TEST ;; large) RELAX_S=$RELAX_LARGE ;; *) RELAX_S=$RELAX_BASIS ;; esac
     [ "$RELAX_S" -gt 0 ] || continue
     # the run's name in work files and label markers: skipped conformers
     # (training molecules only) get their own, since they are other structures
@@ -482,7 +484,7 @@ fi
 if has "$STAGES" modes && has "$SETS" basis && [ ! -f "$WORK/labels/basis.modes.done" ]; then
   D=$WORK/gen/modes rc=0
   mkdir -p "$D"
-  [ -s "$D/lowest.xyz" ] || $PY "$ROOT/tools/dataset/modes.py" lowest "$WORK/relax/basis.c$CONF.r$RELAX_LARGE" \
+  [ -s "$D/lowest.xyz" ] || $PY "$ROOT/tools/dataset/modes.py" lowest "$WORK/relax/basis.c$CONF.r$RELAX_BASIS" \
       "$D/lowest.xyz" 2>>"$LOG" || rc=$?
   if [ $rc = 0 ] && [ ! -s "$D/modes.json" ]; then
     OMP_NUM_THREADS=$THREADS "$NADIR" modes "$D/lowest.xyz" --potential-command "$REF" --json \
