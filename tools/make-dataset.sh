@@ -81,8 +81,9 @@
 #         relaxations 2,160 x 4 s                           ~ 2.5 core-hours
 #         scans 130 x 30 s                                  ~ 1 core-hour
 #   test    240 x 130 = ~31,000 structures + 1,920 relaxations ~ 4 core-hours
-#   large    60 x ~100 = ~6,000 structures (0.4 s) + 240 relaxations of
-#            ~100 steps (0.4 s each)                        ~ 3.5 core-hours
+#   large    60 x ~100 = ~6,000 structures (0.4 s) + 180 relaxations of
+#            ~100 steps (measured 2026-12-03: the 180 and their 3,777
+#            labels took 46 min on 2 cores)                 ~ 3 core-hours
 #   basis    27 x ~100 = ~2,700 tiny structures                ~ 0.1 core-hour
 #   total ~185,000 structures, ~20 core-hours: ~10-11 hours on 2 cores
 #   (estimated from the measured rates above; the run appends its own
