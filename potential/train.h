@@ -90,7 +90,8 @@ typedef struct nd_train_config {
     const struct nd_model *start;
     const char *start_name;                 /* its file, for the provenance; may be NULL */
     /* Molecule keys that always go to the training side of the split (the
-     * caller's strings; NULL or 0: none), such as the small molecules of a
+     * caller's strings, read only during nd_train_new; NULL or 0: none),
+     * such as the small molecules of a
      * basis set that teach environments no other molecule has: held out by
      * chance, their environments would never be learned. The seeded split
      * is drawn as without them and the listed ones are then moved out of
