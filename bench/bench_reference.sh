@@ -6,9 +6,9 @@
 # bundled model: at least 200 times faster). The model is timed twice: the
 # command (nadir energy --gradient, which also reads, prints and computes
 # each member's forces) and the library call the conformer search makes
-# (bench_potential --time-file); both ratios are printed. Then a conformer search with the bundled model, with its counts
-# and time. Medians of repeated runs. Skips the reference part when xtb is
-# absent.
+# (bench_potential --time-file); both ratios are printed. Then a conformer
+# search with the bundled model, with its counts and time. Medians of
+# repeated runs. Skips the reference part when xtb is absent.
 set -euo pipefail
 cd "$(dirname "$0")/.."
 NADIR=${ND_NADIR:-build/nadir}
