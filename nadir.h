@@ -22,6 +22,7 @@
 
 /* potential */
 #include "potential/descriptor.h"
+#include "potential/descriptor_json.h"
 #include "potential/model.h"
 #include "potential/potential.h"
 #include "potential/ensemble.h"

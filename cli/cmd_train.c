@@ -16,7 +16,7 @@
 static const char *CMD = "train";
 
 typedef struct {
-    const char *data, *output, *state, *start, *always;
+    const char *data, *output, *state, *start, *always, *descriptor;
     int threads, resume, skip_bad, cache, quiet;
     int shape_given; /* --elements, --layers or --members was given */
     nd_train_config cfg;
@@ -51,6 +51,10 @@ static void usage(FILE *f)
             "  --elements H,C,N,O       the elements the model covers (default: those in\n"
             "                           the dataset); a structure with another element is\n"
             "                           an error naming its line\n"
+            "  --descriptor FILE        the symmetry functions (cutoffs, radial and angular\n"
+            "                           sets) as JSON: the \"descriptor\" object of a model\n"
+            "                           file's header, alone or under \"descriptor\"\n"
+            "                           (default: potential/descriptors/default.json)\n"
             "  --layers 96,64           widths of the hidden layers (default %d,%d)\n"
             "  --members K              ensemble members (default %d)\n"
             "  --epochs N               at most N epochs (default %d)\n"
@@ -101,6 +105,7 @@ static void usage(FILE *f)
             "  nadir train labels.jsonl -o mine.model\n"
             "  nadir train labels.jsonl -o mine.model --elements H,C,N,O --layers 64,32 \\\n"
             "        --members 2 --epochs 50 --threads 2\n"
+            "  nadir train labels.jsonl -o wide.model --descriptor my-descriptor.json\n"
             "  nadir train labels.jsonl -o mine.model --resume     (after an interruption)\n"
             "  nadir train more.jsonl -o refined.model --start-from mine.model --epochs 30\n"
             "\n"
@@ -162,10 +167,11 @@ static int parse(int argc, char **argv, train_options *o)
 {
     enum { O_ELEM = 256, O_LAYERS, O_MEMBERS, O_EPOCHS, O_BATCH, O_FW, O_VF, O_LR, O_LRF, O_PAT,
            O_RPAT, O_WD, O_SEED, O_THREADS, O_STATE, O_RESUME, O_SKIP, O_CACHE, O_QUIET, O_START,
-           O_EW, O_MO, O_ALWAYS };
+           O_EW, O_MO, O_ALWAYS, O_DESC };
     static const struct option longopts[] = {{"output", required_argument, NULL, 'o'},
                                               {"elements", required_argument, NULL, O_ELEM},
                                               {"layers", required_argument, NULL, O_LAYERS},
+                                              {"descriptor", required_argument, NULL, O_DESC},
                                               {"members", required_argument, NULL, O_MEMBERS},
                                               {"epochs", required_argument, NULL, O_EPOCHS},
                                               {"batch", required_argument, NULL, O_BATCH},
@@ -207,6 +213,10 @@ static int parse(int argc, char **argv, train_options *o)
         case O_LAYERS:
             if ((iv = parse_layers(optarg, &o->cfg)))
                 return iv;
+            o->shape_given = 1;
+            break;
+        case O_DESC:
+            o->descriptor = optarg;
             o->shape_given = 1;
             break;
         case O_MEMBERS:
@@ -299,8 +309,9 @@ static int parse(int argc, char **argv, train_options *o)
         return cli_usage(CMD, optind >= argc ? "no dataset given" : "one dataset only");
     o->data = argv[optind];
     if (o->start && o->shape_given)
-        return cli_usage(CMD, "--start-from keeps the start model's elements, layers and members; "
-                              "leave out --elements, --layers and --members");
+        return cli_usage(CMD, "--start-from keeps the start model's elements, descriptor, layers "
+                              "and members; leave out --elements, --descriptor, --layers and "
+                              "--members");
     if (o->cfg.min_learning_rate > o->cfg.learning_rate)
         return cli_usage(CMD, "--learning-rate-floor %g is above --learning-rate %g",
                          o->cfg.min_learning_rate, o->cfg.learning_rate);
@@ -458,6 +469,8 @@ int cmd_train(int argc, char **argv)
     else
         snprintf(state, sizeof state, "%s.state", o.output);
     nd_error err;
+    if (o.descriptor && nd_descriptor_json_load(o.descriptor, &o.cfg.descriptor, &err))
+        return cli_error(CMD, &err);
     nd_dataset *d = NULL;
     nd_dataset_report rep;
     int flags = (o.skip_bad ? ND_DATASET_SKIP_BAD : 0) | (o.cache ? ND_DATASET_CACHE : 0);

@@ -191,3 +191,19 @@ int nd_report_lines_close(nd_report_lines *j, nd_error *err)
     free(j);
     return status;
 }
+
+char *nd_report_exact(double v, char *buf)
+{
+    for (int prec = 15; prec <= 17; prec++) {
+        snprintf(buf, 32, "%.*g", prec, v);
+        if (strtod(buf, NULL) == v)
+            break;
+    }
+    return buf;
+}
+
+void nd_report_add_exact(cJSON *o, const char *key, double v)
+{
+    char buf[40];
+    cJSON_AddRawToObject(o, key, nd_report_exact(v, buf));
+}

@@ -26,6 +26,16 @@ cJSON *nd_report_molecule(const nd_molecule *m);
  * ND_ENOMEM. */
 int nd_report_add_numbers(cJSON *obj, const char *name, const double *v, int n, nd_error *err);
 
+/* Writes v into buf (at least 32 bytes) with the fewest digits (15 to 17)
+ * that read back as exactly v, and returns buf. cJSON's own printer only
+ * checks the round trip to within a tolerance; model and dataset files need
+ * the same bits back. */
+char *nd_report_exact(double v, char *buf);
+
+/* Adds number v to o under key, printed by nd_report_exact (a raw JSON
+ * number). v must be finite. */
+void nd_report_add_exact(cJSON *o, const char *key, double v);
+
 /* A JSON Lines stream: one compact JSON value per line. */
 typedef struct nd_report_lines nd_report_lines;
 

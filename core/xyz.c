@@ -1,6 +1,7 @@
 #include "core/xyz.h"
 
 #include "core/elements.h"
+#include "core/report.h"
 
 #include <ctype.h>
 #include <errno.h>
@@ -275,12 +276,7 @@ char *nd_xyz_format_double(double v, char *buf)
     snprintf(buf, 32, "%.6f", v);
     if (strtod(buf, NULL) == v && (v != 0.0 || !signbit(v)))
         return buf;
-    for (int prec = 15; prec <= 17; prec++) {
-        snprintf(buf, 32, "%.*g", prec, v);
-        if (strtod(buf, NULL) == v)
-            break;
-    }
-    return buf;
+    return nd_report_exact(v, buf);
 }
 
 int nd_xyz_write(FILE *f, const nd_molecule *mol, nd_error *err)

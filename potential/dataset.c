@@ -3,6 +3,7 @@
 #include "potential/dataset.h"
 
 #include "core/elements.h"
+#include "core/report.h"
 #include "core/units.h"
 
 #include <cjson/cJSON.h>
@@ -1456,12 +1457,7 @@ static void sb_str(sbuf *b, const char *s) { sb_put(b, s, strlen(s)); }
 static void sb_num(sbuf *b, double v)
 {
     char t[40];
-    for (int prec = 15; prec <= 17; prec++) {
-        snprintf(t, sizeof t, "%.*g", prec, v);
-        if (strtod(t, NULL) == v)
-            break;
-    }
-    sb_str(b, t);
+    sb_str(b, nd_report_exact(v, t));
 }
 
 /* Appends s as a JSON string (quotes and escapes). */

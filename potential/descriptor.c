@@ -38,6 +38,21 @@ void nd_descriptor_defaults(nd_descriptor_params *p)
     }
 }
 
+int nd_descriptor_equal(const nd_descriptor_params *a, const nd_descriptor_params *b)
+{
+    if (a->radial_cutoff != b->radial_cutoff || a->angular_cutoff != b->angular_cutoff ||
+        a->nradial != b->nradial || a->nangular != b->nangular)
+        return 0;
+    for (int i = 0; i < a->nradial; i++)
+        if (a->radial_eta[i] != b->radial_eta[i] || a->radial_shift[i] != b->radial_shift[i])
+            return 0;
+    for (int i = 0; i < a->nangular; i++)
+        if (a->angular_eta[i] != b->angular_eta[i] || a->angular_zeta[i] != b->angular_zeta[i] ||
+            a->angular_lambda[i] != b->angular_lambda[i])
+            return 0;
+    return 1;
+}
+
 int nd_descriptor_check(const nd_descriptor_params *p, nd_error *err)
 {
     if (!(p->radial_cutoff > 0 && isfinite(p->radial_cutoff) && p->radial_cutoff <= 50))

@@ -65,6 +65,10 @@ void nd_descriptor_defaults(nd_descriptor_params *p);
  * naming the first bad parameter. */
 int nd_descriptor_check(const nd_descriptor_params *p, nd_error *err);
 
+/* Whether a and b hold the same cutoffs and functions (compared member by
+ * member, unused slots ignored). */
+int nd_descriptor_equal(const nd_descriptor_params *a, const nd_descriptor_params *b);
+
 /* Number of features for a model of nel elements. */
 int nd_descriptor_size(const nd_descriptor_params *p, int nel);
 

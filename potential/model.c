@@ -5,7 +5,9 @@
 
 #include "core/elements.h"
 #include "core/rng.h"
+#include "potential/descriptor_json.h"
 #include "potential/network.h"
+#include "core/report.h"
 
 #include <cjson/cJSON.h>
 #include <errno.h>
@@ -293,20 +295,6 @@ static double get_le(const unsigned char *p)
     return v;
 }
 
-/* Adds number v to o under key, printed with the fewest digits (15 to 17)
- * that read back to exactly v; cJSON's own printer only checks the round
- * trip to within a tolerance. */
-static void add_exact(cJSON *o, const char *key, double v)
-{
-    char buf[40];
-    for (int prec = 15; prec <= 17; prec++) {
-        snprintf(buf, sizeof buf, "%.*g", prec, v);
-        if (strtod(buf, NULL) == v)
-            break;
-    }
-    cJSON_AddRawToObject(o, key, buf);
-}
-
 /* The header object of m; NULL when out of memory. */
 static cJSON *header_json(const nd_model *m)
 {
@@ -320,23 +308,7 @@ static cJSON *header_json(const nd_model *m)
     cJSON *d = cJSON_AddObjectToObject(h, "descriptor");
     cJSON_AddStringToObject(d, "kind", "Behler-Parrinello symmetry functions");
     cJSON_AddStringToObject(d, "cutoff_function", "(1-t)^3 (1+3t+6t^2), t = r/cutoff");
-    add_exact(d, "radial_cutoff", m->desc.radial_cutoff);
-    cJSON *r = cJSON_AddArrayToObject(d, "radial");
-    for (int i = 0; i < m->desc.nradial; i++) {
-        cJSON *o = cJSON_CreateObject();
-        add_exact(o, "eta", m->desc.radial_eta[i]);
-        add_exact(o, "shift", m->desc.radial_shift[i]);
-        cJSON_AddItemToArray(r, o);
-    }
-    add_exact(d, "angular_cutoff", m->desc.angular_cutoff);
-    cJSON *a = cJSON_AddArrayToObject(d, "angular");
-    for (int i = 0; i < m->desc.nangular; i++) {
-        cJSON *o = cJSON_CreateObject();
-        add_exact(o, "eta", m->desc.angular_eta[i]);
-        cJSON_AddNumberToObject(o, "zeta", m->desc.angular_zeta[i]);
-        cJSON_AddNumberToObject(o, "lambda", m->desc.angular_lambda[i]);
-        cJSON_AddItemToArray(a, o);
-    }
+    nd_descriptor_json_add(d, &m->desc);
     cJSON_AddNumberToObject(d, "features", m->D);
     cJSON *nw = cJSON_AddObjectToObject(h, "network");
     cJSON *hid = cJSON_AddArrayToObject(nw, "hidden");
@@ -519,31 +491,10 @@ static int parse_header(const char *path, const cJSON *h, nd_model **out, size_t
     if (!cJSON_IsObject(d))
         return nd_fail(err, ND_EINPUT, "%s: header lacks the \"descriptor\" object", path);
     nd_descriptor_params dp;
-    memset(&dp, 0, sizeof dp);
-    if ((s = get_num(path, d, "radial_cutoff", &dp.radial_cutoff, err)) ||
-        (s = get_num(path, d, "angular_cutoff", &dp.angular_cutoff, err)))
+    char where[600];
+    snprintf(where, sizeof where, "%.500s: model header descriptor", path);
+    if ((s = nd_descriptor_json_read(d, where, &dp, err)))
         return s;
-    const cJSON *ra = cJSON_GetObjectItemCaseSensitive(d, "radial");
-    const cJSON *an = cJSON_GetObjectItemCaseSensitive(d, "angular");
-    if (!cJSON_IsArray(ra) || !cJSON_IsArray(an))
-        return nd_fail(err, ND_EINPUT, "%s: descriptor lacks the \"radial\" or \"angular\" list", path);
-    dp.nradial = cJSON_GetArraySize(ra);
-    dp.nangular = cJSON_GetArraySize(an);
-    if (dp.nradial > ND_DESC_MAX_RADIAL || dp.nangular > ND_DESC_MAX_ANGULAR)
-        return nd_fail(err, ND_EINPUT, "%s: descriptor has too many functions", path);
-    for (int i = 0; i < dp.nradial; i++) {
-        const cJSON *o = cJSON_GetArrayItem(ra, i);
-        if ((s = get_num(path, o, "eta", &dp.radial_eta[i], err)) ||
-            (s = get_num(path, o, "shift", &dp.radial_shift[i], err)))
-            return s;
-    }
-    for (int i = 0; i < dp.nangular; i++) {
-        const cJSON *o = cJSON_GetArrayItem(an, i);
-        if ((s = get_num(path, o, "eta", &dp.angular_eta[i], err)) ||
-            (s = get_int(path, o, "zeta", &dp.angular_zeta[i], err)) ||
-            (s = get_int(path, o, "lambda", &dp.angular_lambda[i], err)))
-            return s;
-    }
     const cJSON *nw = cJSON_GetObjectItemCaseSensitive(h, "network");
     if (!cJSON_IsObject(nw))
         return nd_fail(err, ND_EINPUT, "%s: header lacks the \"network\" object", path);

@@ -860,6 +860,20 @@ static uint64_t fingerprint(const nd_train *t)
         h = hash_double(h, c->energy_window);
     if (c->molecule_offset > 0) /* likewise */
         h = hash_double(h, 2 + c->molecule_offset);
+    nd_descriptor_params dflt;
+    nd_descriptor_defaults(&dflt);
+    if (!nd_descriptor_equal(&dflt, &m->desc)) { /* likewise: only a chosen descriptor */
+        const nd_descriptor_params *p = &m->desc;
+        h = hash_double(h, p->radial_cutoff);
+        h = hash_double(h, p->angular_cutoff);
+        h = hash_long(h, p->nradial);
+        for (int i = 0; i < p->nradial; i++)
+            h = hash_double(hash_double(h, p->radial_eta[i]), p->radial_shift[i]);
+        h = hash_long(h, p->nangular);
+        for (int i = 0; i < p->nangular; i++)
+            h = hash_long(hash_long(hash_double(h, p->angular_eta[i]), p->angular_zeta[i]),
+                          p->angular_lambda[i]);
+    }
     h = nd_model_fnv1a64(h, &c->seed, sizeof c->seed);
     h = hash_long(h, t->ntrain);
     for (long s = 0; s < t->ntrain; s++) {
@@ -1707,8 +1721,8 @@ int nd_train_load_state(nd_train *t, const char *path, nd_error *err)
         goto out;
     }
     if (strcmp(fp->valuestring, mine) != 0) {
-        why = "it was made from another dataset or other settings (members, layers, batch, "
-              "weights, fraction, seed, rates, elements must all be the same)";
+        why = "it was made from another dataset or other settings (members, layers, "
+              "descriptor, batch, weights, fraction, seed, rates, elements must all be the same)";
         goto out;
     }
     const unsigned char *p = nl + 1;

@@ -40,6 +40,8 @@ basis), evaluates it on the held-out sets and records provenance and status.
   --work DIR          make-dataset work directory (default data/dataset)
   --extra FILE        another dataset to train on (repeatable)
   --layers 96,64      hidden layers (default: nadir train's)
+  --descriptor FILE   symmetry functions (nadir train --descriptor; default:
+                      potential/descriptors/default.json)
   --members K         ensemble members (default 4)
   --epochs N          epoch limit (default 100)
   --seed S            seed (default 1)
@@ -62,7 +64,7 @@ EOF
 [ $# -ge 1 ] || { usage >&2; exit 2; }
 case "$1" in -h|--help) usage; exit 0 ;; -*) echo "train-model: NAME first (see --help)" >&2; exit 2 ;; esac
 NAME=$1; shift
-WORK=$ROOT/data/dataset EXTRA=() LAYERS="" MEMBERS=4 EPOCHS=100 SEED=1 THREADS=2 START="" RESUME="" RATE="" FWEIGHT="" EWINDOW="" MOFFSET=""
+WORK=$ROOT/data/dataset EXTRA=() LAYERS="" MEMBERS=4 EPOCHS=100 SEED=1 THREADS=2 START="" DESC="" RESUME="" RATE="" FWEIGHT="" EWINDOW="" MOFFSET=""
 while [ $# -gt 0 ]; do
   case "$1" in
     --resume) RESUME=--resume; shift; continue ;;
@@ -73,6 +75,7 @@ while [ $# -gt 0 ]; do
     --work) WORK=$2 ;;
     --extra) EXTRA+=("$2") ;;
     --layers) LAYERS=$2 ;;
+    --descriptor) DESC=$2 ;;
     --members) MEMBERS=$2 ;;
     --epochs) EPOCHS=$2 ;;
     --seed) SEED=$2 ;;
@@ -106,8 +109,10 @@ say "training file $DATA: $(grep -c '"elements"' "$DATA") structures"
 
 # --- train
 opts=(--members "$MEMBERS" --epochs "$EPOCHS" --seed "$SEED" --threads "$THREADS" --cache)
-[ -n "$LAYERS" ] && opts+=(--layers "$LAYERS")
 if [ -n "$START" ]; then opts=(--start-from "$START" --epochs "$EPOCHS" --seed "$SEED" --threads "$THREADS" --cache); fi
+# with --start-from, nadir train refuses these (the start model's shape is kept)
+[ -n "$LAYERS" ] && opts+=(--layers "$LAYERS")
+[ -n "$DESC" ] && opts+=(--descriptor "$DESC")
 [ -n "$RATE" ] && opts+=(--learning-rate "$RATE")
 [ -n "$FWEIGHT" ] && opts+=(--force-weight "$FWEIGHT")
 [ -n "$EWINDOW" ] && opts+=(--energy-window "$EWINDOW")

@@ -115,6 +115,43 @@ check_fails "warm start from a model without an element of the data" 3 "sulfur.j
   "$NADIR" train "$T/sulfur.jsonl" -o "$T/x.model" --start-from "$T/a.model" --epochs 1
 check_fails "warm start from a missing model" 3 "nope.model" "$NADIR" train "$T/data.jsonl" --start-from "$T/nope.model"
 
+# --descriptor: a chosen set of symmetry functions ends up in the model's
+# header, and a resume with another descriptor is refused.
+cat > "$T/desc.json" <<'JSON'
+{"note": "fewer radial, wider angular",
+ "descriptor": {"radial_cutoff": 4.8, "radial": [{"eta": 2.5, "shift": 1.0}, {"eta": 2.5, "shift": 2.2}, {"eta": 2.5, "shift": 3.4}],
+  "angular_cutoff": 4.1, "angular": [{"eta": 0.03, "zeta": 1, "lambda": 1}, {"eta": 0.03, "zeta": 1, "lambda": -1}, {"eta": 0.7, "zeta": 8, "lambda": 1}]}}
+JSON
+check "train with --descriptor" "$NADIR" train "$T/data.jsonl" -o "$T/d.model" $OPTS --epochs 2 --descriptor "$T/desc.json"
+if /usr/bin/python3 - "$T/d.model" <<'PY'
+import json, sys
+raw = open(sys.argv[1], "rb").read().decode("latin-1")
+d = json.JSONDecoder().raw_decode(raw[raw.index("\n") + 1:])[0]["descriptor"]
+assert d["radial_cutoff"] == 4.8 and d["angular_cutoff"] == 4.1, d
+assert [r["shift"] for r in d["radial"]] == [1.0, 2.2, 3.4], d["radial"]
+assert [(a["eta"], a["zeta"], a["lambda"]) for a in d["angular"]] == [(0.03, 1, 1), (0.03, 1, -1), (0.7, 8, 1)], d["angular"]
+assert d["features"] == 3 * 3 + 6 * 3, d["features"]  # 3 elements: 3 radial each, 6 pairs x 3 angular
+PY
+then ok "--descriptor: the model header holds the chosen functions"; else not_ok "--descriptor: the model header holds the chosen functions"; fi
+check "the --descriptor model evaluates" "$NADIR" evaluate "$T/d.model" "$T/data.jsonl"
+check "train 2 epochs with the default descriptor" "$NADIR" train "$T/data.jsonl" -o "$T/e.model" $OPTS --epochs 2 \
+  --descriptor potential/descriptors/default.json
+"$NADIR" train "$T/data.jsonl" -o "$T/f.model" $OPTS --epochs 2 --quiet >/dev/null 2>&1
+cmp -s "$T/e.model" "$T/f.model" && ok "potential/descriptors/default.json gives the model trained without --descriptor, byte for byte" \
+  || not_ok "potential/descriptors/default.json gives the model trained without --descriptor, byte for byte"
+check_fails "resume with another descriptor is refused" 3 "other settings (members, layers, descriptor" \
+  "$NADIR" train "$T/data.jsonl" -o "$T/e.model" $OPTS --epochs 3 --resume --descriptor "$T/desc.json"
+check_fails "--descriptor with --start-from is refused" 2 "keeps the start model's elements, descriptor" \
+  "$NADIR" train "$T/data.jsonl" --start-from "$T/a.model" --descriptor "$T/desc.json"
+printf '{"radial_cutoff": 5,\n "radial": [{"eta": 1, "shift": 1}],\n "angular_cutoff": 6, "angular": [{"eta": 0.1, "zeta": 2, "lambda": 1}]}\n' > "$T/bad-desc.json"
+check_fails "a descriptor with the angular cutoff past the radial one" 3 "bad-desc.json: descriptor: angular cutoff 6 must be positive and at most the radial cutoff 5" \
+  "$NADIR" train "$T/data.jsonl" --descriptor "$T/bad-desc.json"
+printf '{"radial_cutoff": 5,\n "radial": [\n' > "$T/cut-desc.json"
+check_fails "a truncated descriptor file names its line" 3 "cut-desc.json: line 3: not valid JSON" \
+  "$NADIR" train "$T/data.jsonl" --descriptor "$T/cut-desc.json"
+check_fails "a missing descriptor file" 3 "nope.json: cannot open the descriptor file" \
+  "$NADIR" train "$T/data.jsonl" --descriptor "$T/nope.json"
+
 # Evaluate.
 check "evaluate" "$NADIR" evaluate "$T/a.model" "$T/data.jsonl"
 grep -q 'relative energy' "$TAP_TMP/out" && grep -q 'on H' "$TAP_TMP/out" && grep -q 'ensemble spread' "$TAP_TMP/out" \
