@@ -54,7 +54,10 @@ static void usage(FILE *f)
             "  --descriptor FILE        the symmetry functions (cutoffs, radial and angular\n"
             "                           sets) as JSON: the \"descriptor\" object of a model\n"
             "                           file's header, alone or under \"descriptor\"\n"
-            "                           (default: potential/descriptors/default.json)\n"
+            "                           (default: potential/descriptors/default.json);\n"
+            "                           with --start-from, a descriptor that adds functions\n"
+            "                           to the start model's: the new features start at\n"
+            "                           zero weight, so training begins from its energies\n"
             "  --layers 96,64           widths of the hidden layers (default %d,%d)\n"
             "  --members K              ensemble members (default %d)\n"
             "  --epochs N               at most N epochs (default %d)\n"
@@ -90,8 +93,9 @@ static void usage(FILE *f)
             "  --start-from MODEL       warm start: begin from MODEL's weights, element\n"
             "                           offsets and feature scaling instead of random\n"
             "                           weights (its elements, layers, members and\n"
-            "                           descriptor are kept), e.g. to refine a model on\n"
-            "                           more data at a fraction of the cost\n"
+            "                           descriptor are kept unless --descriptor widens\n"
+            "                           it), e.g. to refine a model on more data at a\n"
+            "                           fraction of the cost\n"
             "  --state FILE             the checkpoint (default MODEL.state)\n"
             "  --resume                 continue from the checkpoint; the dataset and the\n"
             "                           options must be the same (--epochs may grow)\n"
@@ -217,7 +221,7 @@ static int parse(int argc, char **argv, train_options *o)
             break;
         case O_DESC:
             o->descriptor = optarg;
-            o->shape_given = 1;
+            o->cfg.descriptor_given = 1;
             break;
         case O_MEMBERS:
         case O_EPOCHS:
@@ -309,9 +313,8 @@ static int parse(int argc, char **argv, train_options *o)
         return cli_usage(CMD, optind >= argc ? "no dataset given" : "one dataset only");
     o->data = argv[optind];
     if (o->start && o->shape_given)
-        return cli_usage(CMD, "--start-from keeps the start model's elements, descriptor, layers "
-                              "and members; leave out --elements, --descriptor, --layers and "
-                              "--members");
+        return cli_usage(CMD, "--start-from keeps the start model's elements, layers and members; "
+                              "leave out --elements, --layers and --members");
     if (o->cfg.min_learning_rate > o->cfg.learning_rate)
         return cli_usage(CMD, "--learning-rate-floor %g is above --learning-rate %g",
                          o->cfg.min_learning_rate, o->cfg.learning_rate);

@@ -60,6 +60,16 @@ void nd_model_spec_defaults(nd_model_spec *s);
  * depend on anything but (spec, seed). *out is freed with nd_model_free. */
 int nd_model_new(nd_model **out, const nd_model_spec *spec, uint64_t seed, nd_error *err);
 
+/* A copy of m whose descriptor is p, a superset of m's: the same cutoffs,
+ * every radial function and angular set of m (equal parameters, any order)
+ * and more. The features m knows keep their scaling and weights; the new
+ * ones get zero first-layer weights (mu 0, scale 1 until the caller fits
+ * them), so the copy's energies equal m's and training can then learn what
+ * the new features add. is_new (NULL, or room for the new descriptor size)
+ * marks the new features. ND_EINPUT naming what p lacks or changes. */
+int nd_model_widen(nd_model **out, const nd_model *m, const nd_descriptor_params *p,
+                   unsigned char *is_new, nd_error *err);
+
 /* Reads a model file (format above). *out is freed with nd_model_free.
  * ND_EIO if unreadable, ND_EINPUT (naming path) if not a valid model file. */
 int nd_model_load(const char *path, nd_model **out, nd_error *err);

@@ -577,6 +577,7 @@ struct nd_train {
     const nd_dataset *d;
     char *name;
     char *start_name;  /* a warm start's model file (cfg.start is not kept), or NULL */
+    int widened_from;  /* the start model's descriptor size when widened, else 0 */
     nd_train_config cfg;
     nd_model *model;
     int K;
@@ -790,7 +791,7 @@ static int fit_offsets(nd_train *t, nd_error *err)
 }
 
 /* Per-element mean and scale of every feature over the training atoms. */
-static int fit_scaling(nd_train *t, nd_error *err)
+static int fit_scaling(nd_train *t, const unsigned char *only, nd_error *err)
 {
     nd_model *m = t->model;
     const int nel = m->nel, D = m->D;
@@ -808,6 +809,8 @@ static int fit_scaling(nd_train *t, nd_error *err)
     if (s == ND_OK)
         for (int e = 0; e < nel; e++)
             for (int f = 0; f < D; f++) {
+                if (only && !only[f])
+                    continue;
                 double n = (double)cnt[e];
                 double mu = n > 0 ? st[(size_t)e * 2 * D + f] / n : 0;
                 double var = n > 0 ? st[(size_t)e * 2 * D + D + f] / n - mu * mu : 0;
@@ -1201,7 +1204,22 @@ int nd_train_new(nd_train **out, const nd_dataset *data, const char *data_name,
     if (cfg->start) {
         /* the start model's offsets and scaling stay: its weights were
          * learned with them */
-        if ((s = nd_model_copy(&t->model, cfg->start, err)) || (s = split(t, err)))
+        if (cfg->descriptor_given && !nd_descriptor_equal(&cfg->descriptor, &cfg->start->desc)) {
+            /* widened: the new features are scaled on the training atoms */
+            unsigned char *is_new = malloc((size_t)nd_descriptor_size(&cfg->descriptor, spec.nelements));
+            if (!is_new) {
+                s = nd_fail(err, ND_ENOMEM, "train: out of memory");
+                goto fail;
+            }
+            s = nd_model_widen(&t->model, cfg->start, &cfg->descriptor, is_new, err);
+            if (s == ND_OK && (s = split(t, err)) == ND_OK)
+                s = fit_scaling(t, is_new, err);
+            free(is_new);
+            if (s)
+                goto fail;
+            t->widened_from = cfg->start->D;
+            t->cfg.descriptor = cfg->descriptor;
+        } else if ((s = nd_model_copy(&t->model, cfg->start, err)) || (s = split(t, err)))
             goto fail;
         t->start_name = strdup(cfg->start_name ? cfg->start_name : "a model");
         t->cfg.start = NULL;
@@ -1218,7 +1236,7 @@ int nd_train_new(nd_train **out, const nd_dataset *data, const char *data_name,
         spec.neutral_only = cfg->neutral_only;
         if ((s = nd_model_new(&t->model, &spec, cfg->seed, err)))
             goto fail;
-        if ((s = split(t, err)) || (s = fit_offsets(t, err)) || (s = fit_scaling(t, err)))
+        if ((s = split(t, err)) || (s = fit_offsets(t, err)) || (s = fit_scaling(t, NULL, err)))
             goto fail;
     }
     t->cfg.always_train = NULL; /* the caller's strings: used by split() only */
@@ -1849,6 +1867,8 @@ int nd_train_model(const nd_train *t, nd_model **out, nd_error *err)
     if (t->start_name) {
         const char *sb = strrchr(t->start_name, '/');
         cJSON_AddStringToObject(tr, "started_from", sb ? sb + 1 : t->start_name);
+        if (t->widened_from > 0) /* its features kept, new ones added at zero weight */
+            cJSON_AddNumberToObject(tr, "descriptor_widened_from_features", t->widened_from);
     }
     /* validation errors of the saved (best) weights, ensemble mean */
     nd_train_errors v = t->last_valid;

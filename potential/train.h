@@ -81,10 +81,14 @@ typedef struct nd_train_config {
     uint64_t seed;                          /* 1 */
     int neutral_only;                       /* 1: refuse charged structures */
     nd_descriptor_params descriptor;        /* nd_descriptor_defaults */
+    /* 1: descriptor was chosen. With a warm start it must then extend the
+     * start model's (nd_model_widen): training starts from the start model
+     * with the new features at zero weight. */
+    int descriptor_given;
     /* Warm start: NULL, or a model (the caller's; nd_train_new copies it) whose
      * weights, element offsets and feature scaling training starts from; its
-     * elements, descriptor, layers, members and charge rule replace the ones
-     * above, and the dataset must lie within its elements. Used to refine a
+     * elements, descriptor (unless descriptor_given), layers, members and
+     * charge rule replace the ones above, and the dataset must lie within its elements. Used to refine a
      * model on new data (more structures, an active-learning round) at a
      * fraction of the cost of training from random weights. */
     const struct nd_model *start;

@@ -141,13 +141,39 @@ cmp -s "$T/e.model" "$T/f.model" && ok "potential/descriptors/default.json gives
   || not_ok "potential/descriptors/default.json gives the model trained without --descriptor, byte for byte"
 check_fails "resume with another descriptor is refused" 3 "other settings (members, layers, descriptor" \
   "$NADIR" train "$T/data.jsonl" -o "$T/e.model" $OPTS --epochs 3 --resume --descriptor "$T/desc.json"
-check_fails "--descriptor with --start-from is refused" 2 "keeps the start model's elements, descriptor" \
+check_fails "--start-from with a descriptor that is not a widening of the start model's" 3 "radial cutoff 4.8 differs from the model's 5.2" \
   "$NADIR" train "$T/data.jsonl" --start-from "$T/a.model" --descriptor "$T/desc.json"
+# widening: the default functions plus two angular sets; 0 epochs give the
+# start model's energies, and the provenance says it was widened
+/usr/bin/python3 -c '
+import json, sys
+d = json.load(open("potential/descriptors/default.json"))
+d["angular"] += [{"eta": 0.05, "zeta": 8, "lambda": 1}, {"eta": 0.6, "zeta": 1, "lambda": -1}]
+json.dump(d, open(sys.argv[1], "w"))' "$T/wider.json"
+check "widen a model by two angular sets (0 epochs)" "$NADIR" train "$T/data.jsonl" -o "$T/wide0.model" --start-from "$T/a.model" \
+  --descriptor "$T/wider.json" --epochs 0 --threads 1
+"$NADIR" energy "$T/big.xyz" --model "$T/a.model" --gradient --json >"$T/ea.json" 2>/dev/null
+"$NADIR" energy "$T/big.xyz" --model "$T/wide0.model" --gradient --json >"$T/ew.json" 2>/dev/null
+if /usr/bin/python3 - "$T/ea.json" "$T/ew.json" "$T/wide0.model" <<'PY'
+import json, sys
+a, w = (json.load(open(f))["records"][0] for f in sys.argv[1:3])
+assert abs(a["energy"] - w["energy"]) <= 1e-9 * abs(a["energy"]), (a["energy"], w["energy"])
+fa = [c for r in a["forces"] for c in r]; fw = [c for r in w["forces"] for c in r]
+assert max(abs(x - y) for x, y in zip(fa, fw)) < 1e-9, "forces differ"
+raw = open(sys.argv[3], "rb").read().decode("latin-1")
+hdr = json.JSONDecoder().raw_decode(raw[raw.index("\n") + 1:])[0]
+assert len(hdr["descriptor"]["angular"]) == 7, hdr["descriptor"]["angular"]
+assert hdr["provenance"]["training"]["descriptor_widened_from_features"] == 3 * 10 + 6 * 5, hdr["provenance"]["training"]
+PY
+then ok "the widened model (0 epochs) gives the start model's energy and forces; provenance says widened from 60 features"
+else not_ok "the widened model (0 epochs) gives the start model's energy and forces; provenance says widened from 60 features"; fi
+check "widened training runs 2 epochs" "$NADIR" train "$T/data.jsonl" -o "$T/wide2.model" --start-from "$T/a.model" \
+  --descriptor "$T/wider.json" --epochs 2 --threads 1
 printf '{"radial_cutoff": 5,\n "radial": [{"eta": 1, "shift": 1}],\n "angular_cutoff": 6, "angular": [{"eta": 0.1, "zeta": 2, "lambda": 1}]}\n' > "$T/bad-desc.json"
 check_fails "a descriptor with the angular cutoff past the radial one" 3 "bad-desc.json: descriptor: angular cutoff 6 must be positive and at most the radial cutoff 5" \
   "$NADIR" train "$T/data.jsonl" --descriptor "$T/bad-desc.json"
 printf '{"radial_cutoff": 5,\n "radial": [\n' > "$T/cut-desc.json"
-check_fails "a truncated descriptor file names its line" 3 "cut-desc.json: line 3: not valid JSON" \
+check_fails "a truncated descriptor file names its line" 3 "cut-desc.json: line 2: not valid JSON" \
   "$NADIR" train "$T/data.jsonl" --descriptor "$T/cut-desc.json"
 check_fails "a missing descriptor file" 3 "nope.json: cannot open the descriptor file" \
   "$NADIR" train "$T/data.jsonl" --descriptor "$T/nope.json"

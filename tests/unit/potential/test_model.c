@@ -8,6 +8,7 @@
 #include "potential/network.h"
 #include "potential/potential.h"
 
+#include <math.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -196,6 +197,103 @@ static void test_round_trip(void **state)
     nd_model_free(m);
 }
 
+/* Energy and gradient of model m on a fixed 6-atom C/O/H/Cl molecule. */
+static void eval6(const nd_model *m, double *e, double *g)
+{
+    static const int z[6] = {6, 8, 1, 17, 6, 1};
+    static const double x[18] = {0, 0, 0, 1.23, 0.1, 0, -0.5, 0.9, 0.2, -0.4, -1.1, 1.2,
+                                 1.9, 1.35, 0.4, 2.6, 0.8, 1.1};
+    nd_potential *p;
+    assert_int_equal(nd_potential_new(&p, m, 6, z, ND_POTENTIAL_MEAN, NULL), ND_OK);
+    assert_int_equal(nd_potential_compute(p, 1, x, e, g, NULL, NULL, NULL), ND_OK);
+    nd_potential_free(p);
+}
+
+/* nd_model_widen: the old functions in another order plus new ones give
+ * the same energies and gradients (the new features at zero weight, the
+ * old ones moved to where the new descriptor puts them); a new feature's
+ * weight then changes the energy; and what is not a widening is refused. */
+static void test_widen(void **state)
+{
+    (void)state;
+    nd_model *m = small_model(9);
+    /* unround scaling, so a feature moved to the wrong place would show */
+    for (int f = 0; f < m->nel * m->D; f++) {
+        m->mu[f] = 0.013 * (f % 7) - 0.02;
+        m->scale[f] = 0.71 + 0.037 * (f % 5);
+    }
+    const nd_descriptor_params *o = nd_model_descriptor(m);
+    nd_descriptor_params p = *o;
+    /* reversed radial order plus two new Gaussians; angular sets rotated by
+     * one plus three new ones */
+    p.nradial = o->nradial + 2;
+    for (int i = 0; i < o->nradial; i++) {
+        p.radial_eta[o->nradial - 1 - i] = o->radial_eta[i];
+        p.radial_shift[o->nradial - 1 - i] = o->radial_shift[i];
+    }
+    p.radial_eta[o->nradial] = 2.345;
+    p.radial_shift[o->nradial] = 1.385;
+    p.radial_eta[o->nradial + 1] = 0.875;
+    p.radial_shift[o->nradial + 1] = 3.15;
+    p.nangular = o->nangular + 3;
+    for (int i = 0; i < o->nangular; i++) {
+        int j = (i + 1) % o->nangular;
+        p.angular_eta[j] = o->angular_eta[i];
+        p.angular_zeta[j] = o->angular_zeta[i];
+        p.angular_lambda[j] = o->angular_lambda[i];
+    }
+    for (int i = o->nangular; i < p.nangular; i++) {
+        p.angular_eta[i] = 0.25 + 0.125 * i;
+        p.angular_zeta[i] = 8;
+        p.angular_lambda[i] = i % 2 ? 1 : -1;
+    }
+    nd_model *w;
+    nd_error err;
+    unsigned char is_new[4096];
+    assert_int_equal(nd_model_widen(&w, m, &p, is_new, &err), ND_OK);
+    assert_int_equal(nd_model_features(w), nd_descriptor_size(&p, m->nel));
+    int nnew = 0;
+    for (int f = 0; f < w->D; f++)
+        nnew += is_new[f];
+    assert_int_equal(nnew, w->D - m->D);
+    double e1, e2, g1[18], g2[18];
+    eval6(m, &e1, g1);
+    eval6(w, &e2, g2);
+    assert_rel_close(e2, e1, 1e-12, 1.0);
+    for (int i = 0; i < 18; i++)
+        assert_rel_close(g2[i], g1[i], 1e-10, 1e-6);
+    /* the new features are wired in: a weight on one of them moves the
+     * energy */
+    int fnew = 0;
+    while (!is_new[fnew])
+        fnew++;
+    double *w1 = nd_net_weights(w, 1, 1, 0); /* element slot 1 (C), member 0 */
+    for (int j = 0; j < w->width[1]; j++)
+        w1[(size_t)j * w->D + fnew] = 0.3;
+    eval6(w, &e2, g2);
+    assert_true(fabs(e2 - e1) > 1e-6);
+    nd_model_free(w);
+    /* not widenings */
+    nd_descriptor_params q = p;
+    q.radial_cutoff = o->radial_cutoff + 0.5;
+    assert_int_equal(nd_model_widen(&w, m, &q, NULL, &err), ND_EINPUT);
+    assert_null(w);
+    assert_contains(err.msg, "radial cutoff");
+    q = p;
+    q.angular_cutoff = o->angular_cutoff - 0.25;
+    assert_int_equal(nd_model_widen(&w, m, &q, NULL, &err), ND_EINPUT);
+    assert_contains(err.msg, "angular cutoff");
+    q = p;
+    q.angular_zeta[0] = 16; /* was the model's last angular set */
+    assert_int_equal(nd_model_widen(&w, m, &q, NULL, &err), ND_EINPUT);
+    assert_contains(err.msg, "lacks the model's angular set");
+    q = p;
+    q.radial_shift[0] += 1e-9;
+    assert_int_equal(nd_model_widen(&w, m, &q, NULL, &err), ND_EINPUT);
+    assert_contains(err.msg, "lacks the model's radial function");
+    nd_model_free(m);
+}
+
 /* Loads b (n bytes) as a model file and expects ND_EINPUT with msg. */
 static void expect_reject(const char *path, const unsigned char *b, size_t n, const char *msg)
 {
@@ -277,7 +375,7 @@ int main(void)
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(test_checksum_vectors), cmocka_unit_test(test_new_and_accessors),
         cmocka_unit_test(test_domain_checks),    cmocka_unit_test(test_round_trip),
-        cmocka_unit_test(test_rejects),
+        cmocka_unit_test(test_rejects),         cmocka_unit_test(test_widen),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
