@@ -4,10 +4,10 @@
 #include "core/numeric.h"
 
 #include "core/elements.h"
+#include "core/report.h"
 #include "core/rng.h"
 #include "potential/descriptor_json.h"
 #include "potential/network.h"
-#include "core/report.h"
 
 #include <cjson/cJSON.h>
 #include <errno.h>

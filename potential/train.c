@@ -1206,7 +1206,10 @@ int nd_train_new(nd_train **out, const nd_dataset *data, const char *data_name,
          * learned with them */
         if (cfg->descriptor_given && !nd_descriptor_equal(&cfg->descriptor, &cfg->start->desc)) {
             /* widened: the new features are scaled on the training atoms */
-            unsigned char *is_new = malloc((size_t)nd_descriptor_size(&cfg->descriptor, spec.nelements));
+            if ((s = nd_descriptor_check(&cfg->descriptor, err)))
+                goto fail;
+            int dn = nd_descriptor_size(&cfg->descriptor, spec.nelements);
+            unsigned char *is_new = malloc((size_t)dn);
             if (!is_new) {
                 s = nd_fail(err, ND_ENOMEM, "train: out of memory");
                 goto fail;

@@ -88,9 +88,10 @@ typedef struct nd_train_config {
     /* Warm start: NULL, or a model (the caller's; nd_train_new copies it) whose
      * weights, element offsets and feature scaling training starts from; its
      * elements, descriptor (unless descriptor_given), layers, members and
-     * charge rule replace the ones above, and the dataset must lie within its elements. Used to refine a
-     * model on new data (more structures, an active-learning round) at a
-     * fraction of the cost of training from random weights. */
+     * charge rule replace the ones above, and the dataset must lie within
+     * its elements. Used to refine a model on new data (more structures, an
+     * active-learning round) at a fraction of the cost of training from
+     * random weights. */
     const struct nd_model *start;
     const char *start_name;                 /* its file, for the provenance; may be NULL */
     /* Molecule keys that always go to the training side of the split (the
