@@ -41,7 +41,8 @@ basis), evaluates it on the held-out sets and records provenance and status.
   --extra FILE        another dataset to train on (repeatable)
   --layers 96,64      hidden layers (default: nadir train's)
   --descriptor FILE   symmetry functions (nadir train --descriptor; default:
-                      potential/descriptors/default.json)
+                      potential/descriptors/default.json; with --start-from,
+                      a widening of the start model's)
   --members K         ensemble members (default 4)
   --epochs N          epoch limit (default 100)
   --seed S            seed (default 1)
@@ -110,7 +111,8 @@ say "training file $DATA: $(grep -c '"elements"' "$DATA") structures"
 # --- train
 opts=(--members "$MEMBERS" --epochs "$EPOCHS" --seed "$SEED" --threads "$THREADS" --cache)
 if [ -n "$START" ]; then opts=(--start-from "$START" --epochs "$EPOCHS" --seed "$SEED" --threads "$THREADS" --cache); fi
-# with --start-from, nadir train refuses these (the start model's shape is kept)
+# with --start-from, nadir train refuses --layers (the start model's is kept)
+# and takes --descriptor only as a widening of the start model's
 [ -n "$LAYERS" ] && opts+=(--layers "$LAYERS")
 [ -n "$DESC" ] && opts+=(--descriptor "$DESC")
 [ -n "$RATE" ] && opts+=(--learning-rate "$RATE")
