@@ -11,6 +11,7 @@
 
 #include <stdio.h>
 #include <stdlib.h>
+#include <dirent.h>
 #include <string.h>
 #include <unistd.h>
 
@@ -65,6 +66,33 @@ static void test_default_file(void **state)
                      ND_OK);
     nd_descriptor_defaults(&dflt);
     assert_true(nd_descriptor_equal(&p, &dflt));
+}
+
+/* Every descriptor file shipped in potential/descriptors/ loads (a
+ * candidate file there cannot rot unnoticed). */
+static void test_shipped_files(void **state)
+{
+    (void)state;
+    DIR *dir = opendir("potential/descriptors");
+    assert_non_null(dir);
+    int n = 0;
+    struct dirent *ent;
+    while ((ent = readdir(dir))) {
+        size_t len = strlen(ent->d_name);
+        if (len < 6 || strcmp(ent->d_name + len - 5, ".json") != 0)
+            continue;
+        char path[512];
+        snprintf(path, sizeof path, "potential/descriptors/%s", ent->d_name);
+        nd_descriptor_params p;
+        nd_error err;
+        int s = nd_descriptor_json_load(path, &p, &err);
+        if (s)
+            fprintf(stderr, "%s\n", err.msg);
+        assert_int_equal(s, ND_OK);
+        n++;
+    }
+    closedir(dir);
+    assert_true(n >= 2);
 }
 
 /* A model file's header (its first JSON object, holding "descriptor") read
@@ -219,6 +247,7 @@ int main(void)
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(test_round_trip),
         cmocka_unit_test(test_default_file),
+        cmocka_unit_test(test_shipped_files),
         cmocka_unit_test(test_from_model_header),
         cmocka_unit_test(test_rejects),
         cmocka_unit_test(test_mutations),
