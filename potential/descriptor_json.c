@@ -102,6 +102,15 @@ int nd_descriptor_json_read(const cJSON *d, const char *where, nd_descriptor_par
     return ND_OK;
 }
 
+/* The line (from 1) holding byte off of text. */
+static int line_of(const char *text, size_t off)
+{
+    int line = 1;
+    for (size_t i = 0; i < off; i++)
+        line += text[i] == '\n';
+    return line;
+}
+
 int nd_descriptor_json_parse(const char *text, size_t n, const char *name,
                              nd_descriptor_params *p, nd_error *err)
 {
@@ -111,21 +120,16 @@ int nd_descriptor_json_parse(const char *text, size_t n, const char *name,
     const char *end = NULL;
     cJSON *doc = cJSON_ParseWithLengthOpts(text, n, &end, 0);
     if (!doc) {
-        long off = end && end >= text && end <= text + n ? (long)(end - text) : 0;
-        int line = 1;
-        for (long i = 0; i < off; i++)
-            line += text[i] == '\n';
-        return nd_fail(err, ND_EINPUT, "%s: line %d: not valid JSON", name, line);
+        size_t off = end && end >= text && end <= text + n ? (size_t)(end - text) : 0;
+        return nd_fail(err, ND_EINPUT, "%s: line %d: not valid JSON", name, line_of(text, off));
     }
     size_t k = end ? (size_t)(end - text) : n;
     while (k < n && strchr(" \t\r\n", text[k]))
         k++;
     if (k < n) {
-        int line = 1;
-        for (size_t i = 0; i < k; i++)
-            line += text[i] == '\n';
         cJSON_Delete(doc);
-        return nd_fail(err, ND_EINPUT, "%s: line %d: text after the JSON object", name, line);
+        return nd_fail(err, ND_EINPUT, "%s: line %d: text after the JSON object", name,
+                       line_of(text, k));
     }
     const cJSON *d = cJSON_GetObjectItemCaseSensitive(doc, "descriptor");
     char where[600];
