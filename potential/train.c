@@ -1215,6 +1215,9 @@ int nd_train_new(nd_train **out, const nd_dataset *data, const char *data_name,
                 goto fail;
             }
             s = nd_model_widen(&t->model, cfg->start, &cfg->descriptor, is_new, err);
+            if (s == ND_EINPUT) /* say which model could not be widened */
+                nd_error_prefix(err, "cannot widen %.200s",
+                                cfg->start_name ? cfg->start_name : "the start model");
             if (s == ND_OK && (s = split(t, err)) == ND_OK)
                 s = fit_scaling(t, is_new, err);
             free(is_new);

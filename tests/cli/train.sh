@@ -141,7 +141,7 @@ cmp -s "$T/e.model" "$T/f.model" && ok "potential/descriptors/default.json gives
   || not_ok "potential/descriptors/default.json gives the model trained without --descriptor, byte for byte"
 check_fails "resume with another descriptor is refused" 3 "other settings (members, layers, descriptor" \
   "$NADIR" train "$T/data.jsonl" -o "$T/e.model" $OPTS --epochs 3 --resume --descriptor "$T/desc.json"
-check_fails "--start-from with a descriptor that is not a widening of the start model's" 3 "radial cutoff 4.8 differs from the model's 5.2" \
+check_fails "--start-from with a descriptor that is not a widening of the start model's" 3 "cannot widen $T/a.model: the new descriptor's radial cutoff 4.8 differs from the model's 5.2" \
   "$NADIR" train "$T/data.jsonl" --start-from "$T/a.model" --descriptor "$T/desc.json"
 # widening: the default functions plus two angular sets; 0 epochs give the
 # start model's energies, and the provenance says it was widened
