@@ -1,8 +1,8 @@
 /* Descriptor parameters to and from JSON (descriptor_json.h). */
 #include "potential/descriptor_json.h"
+#include "core/readfile.h"
 #include "core/report.h"
 
-#include <errno.h>
 #include <math.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -144,26 +144,12 @@ int nd_descriptor_json_parse(const char *text, size_t n, const char *name,
 
 int nd_descriptor_json_load(const char *path, nd_descriptor_params *p, nd_error *err)
 {
-    FILE *f = fopen(path, "rb");
-    if (!f)
-        return nd_fail(err, ND_EIO, "%s: cannot open the descriptor file: %s", path,
-                       strerror(errno));
-    char *buf = malloc(DESCRIPTOR_FILE_MAX + 1);
-    if (!buf) {
-        fclose(f);
-        return nd_fail(err, ND_ENOMEM, "%s: out of memory", path);
-    }
-    size_t n = fread(buf, 1, DESCRIPTOR_FILE_MAX + 1, f);
-    int rerr = ferror(f);
-    fclose(f);
-    int s;
-    if (rerr)
-        s = nd_fail(err, ND_EIO, "%s: cannot read the descriptor file", path);
-    else if (n > DESCRIPTOR_FILE_MAX)
-        s = nd_fail(err, ND_EINPUT, "%s: over %d bytes, too large for a descriptor file", path,
-                    DESCRIPTOR_FILE_MAX);
-    else
-        s = nd_descriptor_json_parse(buf, n, path, p, err);
+    unsigned char *buf;
+    size_t n;
+    int s = nd_read_file(path, "descriptor file", DESCRIPTOR_FILE_MAX, &buf, &n, err);
+    if (s)
+        return s;
+    s = nd_descriptor_json_parse((const char *)buf, n, path, p, err);
     free(buf);
     return s;
 }

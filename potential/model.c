@@ -4,6 +4,7 @@
 #include "core/numeric.h"
 
 #include "core/elements.h"
+#include "core/readfile.h"
 #include "core/report.h"
 #include "core/rng.h"
 #include "potential/descriptor_json.h"
@@ -395,42 +396,6 @@ int nd_model_save(const nd_model *m, const char *path, nd_error *err)
     return ND_OK;
 }
 
-/* Reads a whole file into a malloc'd buffer. */
-static int slurp(const char *path, unsigned char **out, size_t *len, nd_error *err)
-{
-    FILE *f = fopen(path, "rb");
-    if (!f)
-        return nd_fail(err, ND_EIO, "%s: cannot open model file: %s", path, strerror(errno));
-    size_t cap = 1 << 16, n = 0;
-    unsigned char *b = malloc(cap + 1);
-    while (b) {
-        size_t r = fread(b + n, 1, cap - n, f);
-        n += r;
-        if (n < cap)
-            break;
-        cap *= 2;
-        unsigned char *nb = realloc(b, cap + 1);
-        if (!nb) {
-            free(b);
-            b = NULL;
-        } else
-            b = nb;
-    }
-    int rerr = ferror(f), rerrno = errno;
-    fclose(f);
-    if (!b)
-        return nd_fail(err, ND_ENOMEM, "%s: out of memory reading the model file", path);
-    if (rerr) {
-        free(b);
-        return nd_fail(err, ND_EIO, "%s: cannot read the model file: %s", path,
-                       strerror(rerrno));
-    }
-    b[n] = 0;
-    *out = b;
-    *len = n;
-    return ND_OK;
-}
-
 /* Number field key of object o as a double, or ND_EINPUT naming it. */
 static int get_num(const char *path, const cJSON *o, const char *key, double *v, nd_error *err)
 {
@@ -555,7 +520,7 @@ int nd_model_load(const char *path, nd_model **out, nd_error *err)
     *out = NULL;
     unsigned char *buf = NULL;
     size_t len = 0;
-    int s = slurp(path, &buf, &len, err);
+    int s = nd_read_file(path, "model file", 0, &buf, &len, err);
     if (s)
         return s;
     size_t lm = strlen(MAGIC);

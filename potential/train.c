@@ -9,6 +9,7 @@
  * they are summed in chunk order, so the bits do not depend on the number
  * of threads. */
 #include "potential/train.h"
+#include "core/readfile.h"
 #include "core/numeric.h"
 
 #include "core/elements.h"
@@ -1689,29 +1690,11 @@ int nd_train_save_state(const nd_train *t, const char *path, nd_error *err)
 
 int nd_train_load_state(nd_train *t, const char *path, nd_error *err)
 {
-    FILE *f = fopen(path, "rb");
-    if (!f)
-        return nd_fail(err, ND_EIO, "%s: cannot read the training state: %s", path,
-                       strerror(errno));
-    unsigned char *buf = NULL;
-    size_t len = 0, cap = 0;
-    for (;;) {
-        if (len + 65536 > cap) {
-            cap = cap ? 2 * cap : 1 << 20;
-            unsigned char *nb = realloc(buf, cap);
-            if (!nb) {
-                free(buf);
-                fclose(f);
-                return nd_fail(err, ND_ENOMEM, "train: out of memory reading %s", path);
-            }
-            buf = nb;
-        }
-        size_t got = fread(buf + len, 1, cap - len, f);
-        len += got;
-        if (got == 0)
-            break;
-    }
-    fclose(f);
+    unsigned char *buf;
+    size_t len;
+    int rs = nd_read_file(path, "training state", 0, &buf, &len, err);
+    if (rs)
+        return rs;
     int s = ND_EINPUT;
     const char *why = "not a nadir training state";
     size_t ml = strlen(STATE_MAGIC);

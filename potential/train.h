@@ -96,12 +96,12 @@ typedef struct nd_train_config {
     const char *start_name;                 /* its file, for the provenance; may be NULL */
     /* Molecule keys that always go to the training side of the split (the
      * caller's strings, read only during nd_train_new; NULL or 0: none),
-     * such as the small molecules of a
-     * basis set that teach environments no other molecule has: held out by
-     * chance, their environments would never be learned. The seeded split
-     * is drawn as without them and the listed ones are then moved out of
-     * validation, so the other molecules stay where they were. Keys not in
-     * the dataset are ignored (nd_train_split reports how many matched). */
+     * such as the small molecules of a basis set that teach environments
+     * no other molecule has: held out by chance, their environments would
+     * never be learned. The seeded split is drawn as without them and the
+     * listed ones are then moved out of validation, so the other molecules
+     * stay where they were. Keys not in the dataset are ignored
+     * (nd_train_split reports how many matched). */
     const char *const *always_train;
     int always_train_count;
 } nd_train_config;
