@@ -40,6 +40,12 @@
 #              displacements along its normal modes, one mode at a time at
 #              harmonic energies of 0.3, 1.2 and 3 kcal/mol both ways, and all
 #              modes at once sampled at 300 and 900 K (tools/dataset/modes.py)
+#   rotors     train and basis sets: the hydrogens of every O-H, N-H and
+#              S-H rotor of each relaxed minimum of the first relaxation run
+#              turned about that bond in steps of 30 degrees, one rotor at a
+#              time, rigidly (the torsions stage turns only bonds between
+#              heavy atoms); the held-out sets stay as they were, so their
+#              figures compare across models
 #   scans      relaxed torsion scans (nadir optimize --scan, xtb single points)
 #              of one rotatable bond on a seeded fraction of the molecules
 #   summary    counts, element counts, energy and force ranges (summary.json),
@@ -117,8 +123,8 @@ interruption and it continues where it stopped.
   --threads N          single points run at a time (default 2; env ND_DATASET_THREADS)
   --sets LIST          which sets, of train,test,large,basis (default all
                        four; pilot: train,test)
-  --stages LIST        of conformers,torsions,thermal,relax,inversion,modes,scans,
-                       summary (default all)
+  --stages LIST        of conformers,torsions,thermal,relax,rotors,inversion,modes,
+                       scans,summary (default all)
   --train-molecules N  use the first N training molecules of the split (0: all)
   --test-molecules N   the first N held-out molecules (0: all)
   --large-molecules N  the first N larger molecules (0: all)
@@ -154,7 +160,7 @@ interruption and it continues where it stopped.
                        molecules, the scans none: their structures come from
                        the same reference program as the audited ones)
   --audit-stages LIST  stages whose labelling is audited, of
-                       conformers,torsions,thermal,relax (default all four)
+                       conformers,torsions,thermal,relax,rotors (default all five)
   --store DIR          label store to continue from and to save into (default
                        for the full run in the default work directory: labels/
                        of the repository; otherwise none): at the
@@ -182,10 +188,10 @@ main() {
 WORK=${ND_DATASET_DIR:-}
 SEED=${ND_DATASET_SEED:-1}
 THREADS=${ND_DATASET_THREADS:-}
-SETS="" STAGES="conformers,torsions,thermal,relax,inversion,modes,scans,summary"
+SETS="" STAGES="conformers,torsions,thermal,relax,rotors,inversion,modes,scans,summary"
 NTRAIN="" NTEST="" NLARGE=""
 CONF="" TORS="" TH_CONF="" TH_TORS="" RELAX="" RELAX_SKIP=0 RELAX_TEST="" RELAX_LARGE="" RELAX_BASIS="" EVERY=5 TH_MIN="" SCANFRAC="" AUDIT=3
-AUDIT_STAGES=conformers,torsions,thermal,relax SCANSTEP=30 SMALL=$ROOT/tools/molecules/small.smi LARGE=$ROOT/tools/molecules/large.smi TESTFRAC=0.1
+AUDIT_STAGES=conformers,torsions,thermal,relax,rotors SCANSTEP=30 SMALL=$ROOT/tools/molecules/small.smi LARGE=$ROOT/tools/molecules/large.smi TESTFRAC=0.1
 BASIS=$ROOT/tools/molecules/basis.smi INVERSION=$ROOT/tools/molecules/inversion.smi
 PILOT=0 STORE=""
 while [ $# -gt 0 ]; do
@@ -453,6 +459,26 @@ EOF
 fi
 
 generated thermal
+
+# ---------------------------------------------------------------- rotors
+# From the minima of each set's first relaxation run (relax/SET.cC.rN, not
+# the --relax-skip runs), restored from the store on a new machine; the
+# label name counts the minima files, so a run with more relaxed chunks
+# labels a new file (nadir label skips the structures it has).
+if has "$STAGES" rotors; then
+  for s in train basis; do
+    has "$SETS" $s || continue
+    case $s in train) RELAX_S=$RELAX ;; *) RELAX_S=$RELAX_BASIS ;; esac
+    R=$WORK/relax/$s.c$CONF.r$RELAX_S
+    [ -d "$R" ] || continue
+    mins=("$R"/chunk*.min.xyz)
+    [ -f "${mins[0]}" ] || continue
+    RO=$WORK/rotors/$s.c$CONF.r$RELAX_S.m${#mins[@]}.s30.xyz
+    mkdir -p "$WORK/rotors"
+    [ -f "$RO" ] || { cat "${mins[@]}" >"$RO.min" && $PY "$HELP" rotors "$RO.min" "$RO" --step 30 2>>"$LOG"; }
+    label $s "rotor turned" "$RO" "rotors.c$CONF.r$RELAX_S.m${#mins[@]}.s30" || true
+  done
+fi
 
 # ---------------------------------------------------------------- inversion
 # (skipped whole once labelled: a machine continuing from the store has the

@@ -23,6 +23,11 @@ structures whatever the order or the subset of molecules.
         the first N conformers of each molecule (after the first K)
   scan-setup IN.sdf OUTDIR --fraction F --seed S
         choose molecules and one rotatable torsion (I,J,K,L) each for scans
+  rotors IN.xyz OUT.xyz [--step DEG]
+        the hydrogens of every O-H, N-H and S-H rotor (a heteroatom with one
+        heavy neighbour) of each structure turned about that bond, one rotor
+        at a time, by every multiple of DEG (30) short of a full turn;
+        shapes with a clash dropped
 """
 import math
 import os
@@ -418,6 +423,51 @@ def cmd_scan_setup(args):
     sys.stderr.write("scan-setup: %d torsion scans chosen from %d molecules\n" % (len(lines), len(order)))
 
 
+def perceive_bonds(els, xyz):
+    """Bonds of a relaxed structure from distances: closer than 1.2 times
+    the sum of covalent radii (common practice, no source). Returns the
+    adjacency lists."""
+    r = np.array([COVALENT.get(e, 0.8) for e in els])
+    d = np.linalg.norm(xyz[:, None, :] - xyz[None, :, :], axis=2)
+    near = (d < 1.2 * (r[:, None] + r[None, :])) & ~np.eye(len(els), dtype=bool)
+    return [list(np.nonzero(row)[0]) for row in near]
+
+
+def cmd_rotors(args):
+    """The stage `rotors` of make-dataset.sh. The torsion-varied shapes
+    turn only bonds with heavy atoms on both ends, so hydroxyl, amino and
+    thiol hydrogens were never turned; a model trained without such shapes
+    put the O-H torsion barrier of acetic acid at half the reference's."""
+    src, dst = args[0], args[1]
+    step = float(opt(args, "--step", "30"))
+    if not 0 < step < 360:
+        die("--step must lie between 0 and 360 degrees")
+    out = []
+    rotors = dropped = 0
+    for title, els, xyz in read_xyz(src):
+        key = title.split()[0] if title else "unnamed"
+        adj = adjacency(len(els), [(i, j, 1) for i, nb in enumerate(perceive_bonds(els, xyz))
+                                   for j in nb if i < j])
+        far = topo_distances(adj, len(els), cap=3) >= 3
+        for x, nb in enumerate(adj):
+            hs = [j for j in nb if els[j] == "H"]
+            heavy = [j for j in nb if els[j] != "H"]
+            if els[x] not in ("O", "N", "S") or not hs or len(heavy) != 1:
+                continue
+            rotors += 1
+            k = 1
+            while k * step < 360 - 1e-9:
+                turned = rotate(xyz, heavy[0], x, hs, math.radians(k * step))
+                k += 1
+                if clashes(els, turned, far):
+                    dropped += 1
+                    continue
+                out.append(xyz_text(key, els, turned))
+    write_atomic(dst, "".join(out))
+    sys.stderr.write("rotors: %d shapes of %d rotors (%d dropped for a clash)\n"
+                     % (len(out), rotors, dropped))
+
+
 def opt(args, name, default):
     if name in args:
         i = args.index(name)
@@ -432,7 +482,8 @@ def main():
         sys.stdout.write(__doc__)
         return
     cmds = {"split": cmd_split, "head": cmd_head, "torsions": cmd_torsions, "thermal": cmd_thermal,
-            "frames": cmd_frames, "retitle": cmd_retitle, "pick": cmd_pick, "scan-setup": cmd_scan_setup}
+            "frames": cmd_frames, "retitle": cmd_retitle, "pick": cmd_pick, "scan-setup": cmd_scan_setup,
+            "rotors": cmd_rotors}
     c = sys.argv[1]
     if c not in cmds:
         die("unknown command '%s' (see --help)" % c)
