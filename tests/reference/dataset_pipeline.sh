@@ -37,7 +37,7 @@ assert len(keys["train"]) == 2 and len(keys["test"]) == 1, keys
 assert not (keys["train"] & keys["test"]), "a molecule in both train and test"
 tags = {r["tag"] for r in rows["train"]}
 need = {"conformer", "torsion varied", "thermal", "relaxation path", "minimum", "thermal near minimum",
-        "torsion scan"}
+        "torsion scan", "rotor turned"}
 assert need <= tags, "stages missing: %s" % (need - tags)
 for s, v in rows.items():
     for r in v:
