@@ -36,6 +36,7 @@
 #include "optimize/precondition.h"
 #include "optimize/minimize.h"
 #include "optimize/restrain.h"
+#include "optimize/torsion_turn.h"
 #include "optimize/hessian.h"
 #include "optimize/modes.h"
 #include "optimize/symmetry.h"

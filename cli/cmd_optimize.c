@@ -69,8 +69,10 @@ static void usage(FILE *f)
             "  --scan I,J,K,L           relaxed torsion scan about atoms J-K: hold the torsion\n"
             "                           I-J-K-L at each angle of --scan-range (harmonic restraint,\n"
             "                           %g kcal/mol/rad^2), relax everything else, starting each\n"
-            "                           angle from the previous structure; every angle is one\n"
-            "                           output record, the energy profile goes in the report\n"
+            "                           angle from the previous structure with the smaller side\n"
+            "                           of J-K turned rigidly to it (not for a ring bond); every\n"
+            "                           angle is one output record, the energy profile goes in\n"
+            "                           the report\n"
             "  --scan-range A,B,STEP    angles of the scan in degrees (default -180,180,15)\n"
             "  --report FILE            write the JSON report to FILE\n"
             "  --json                   print the JSON report instead of the table\n"
@@ -378,6 +380,37 @@ done:
     return s;
 }
 
+/* Marks in moving the side of the scanned bond atoms[1]-atoms[2] that is
+ * turned rigidly to each angle of a scan (nd_torsion_side); returns its
+ * sign, or 0 (the restraint alone moves the atoms, as in a ring) when the
+ * bond is in a ring, the record has no bond table and none can be
+ * perceived, or a frozen atom is on that side. */
+static int scan_side(const nd_molecule *mol, const int *atoms, const unsigned char *frozen,
+                     unsigned char *moving)
+{
+    nd_molecule perceived;
+    nd_molecule_init(&perceived);
+    const nd_molecule *m = mol;
+    nd_error e;
+    int *start = NULL, *adj = NULL, side = 0;
+    if (!mol->has_bonds || mol->nbonds == 0) {
+        if (nd_molecule_copy(&perceived, mol, &e) != ND_OK || nd_verify_perceive_bonds(&perceived, &e) != ND_OK)
+            goto out;
+        m = &perceived;
+    }
+    if (nd_molecule_neighbours(m, &start, &adj, &e) != ND_OK)
+        goto out;
+    side = nd_torsion_side(mol->natoms, start, adj, atoms[1], atoms[2], moving);
+    for (int i = 0; side && frozen && i < mol->natoms; i++)
+        if (frozen[i] && moving[i])
+            side = 0;
+out:
+    free(start);
+    free(adj);
+    nd_molecule_free(&perceived);
+    return side;
+}
+
 /* Relaxes one record (or scans it): fills w. Runs inside the parallel loop,
  * so it touches only w and read-only shared data. */
 static void optimise_record(const opt_options *o, const nd_model *model, record_work *w)
@@ -389,7 +422,7 @@ static void optimise_record(const opt_options *o, const nd_model *model, record_
     memset(&b, 0, sizeof b);
     nd_restraints *rs = NULL;
     nd_precond *pc = NULL;
-    unsigned char *frozen = NULL;
+    unsigned char *frozen = NULL, *moving = NULL;
     if (n < 1) {
         s = nd_fail(err, ND_EINPUT, "the record has no atoms");
         goto out;
@@ -425,9 +458,8 @@ static void optimise_record(const opt_options *o, const nd_model *model, record_
             goto out;
         }
     }
-    int tors_index = -1;
+    int tors_index = -1, a[4], side = 0;
     if (o->scan_list) {
-        int a[4];
         sscanf(o->scan_list, "%d,%d,%d,%d", &a[0], &a[1], &a[2], &a[3]);
         for (int k = 0; k < 4; k++)
             a[k]--;
@@ -438,6 +470,11 @@ static void optimise_record(const opt_options *o, const nd_model *model, record_
             err->code = ND_EINPUT;
             goto out;
         }
+        if (!(moving = malloc((size_t)n))) {
+            s = nd_fail(err, ND_ENOMEM, "out of memory");
+            goto out;
+        }
+        side = scan_side(mol, a, frozen, moving);
     }
     nd_minimize_options mo;
     nd_minimize_options_default(&mo);
@@ -471,6 +508,12 @@ static void optimise_record(const opt_options *o, const nd_model *model, record_
         if (o->scan_list) {
             rr->target = o->scan_from + k * o->scan_step;
             nd_restraints_set_target(rs, tors_index, rr->target, NULL);
+            double now = nd_restraints_value(rs, tors_index, mol->xyz);
+            if (side && isfinite(now)) {
+                double turn = rr->target - now;
+                turn -= 360 * floor((turn + 180) / 360);
+                nd_torsion_turn(n, mol->xyz, moving, a[1], a[2], side * turn * M_PI / 180);
+            }
         }
         nd_error e1;
         nd_error_clear(&e1);
@@ -502,6 +545,7 @@ static void optimise_record(const opt_options *o, const nd_model *model, record_
 out:
     w->status = s;
     free(frozen);
+    free(moving);
     nd_precond_free(pc);
     nd_restraints_free(rs);
     unbind(&b);

@@ -99,6 +99,38 @@ assert frames == sum(p["steps"] + 1 for p in pts), (frames, [p["steps"] for p in
 PY
 then ok "scan holds each angle; symmetric profile; records and frames"; else not_ok "scan holds each angle"; fi
 
+# A scan whose first angle lies far from the start: the side of the bond is
+# turned rigidly to each target before relaxing (the restraint alone once
+# dragged an acid's hydrogen off its oxygen), so the first frame of each
+# angle has its target torsion and the butane's bond lengths.
+"$NADIR" build 'CCCC butane' -o "$T/bu.sdf" --seed 3 2>/dev/null
+"$NADIR" optimize "$T/bu.sdf" --potential-command "$POT" --scan 1,2,3,4 --scan-range -130,110,240 \
+  --max-steps 1 --trajectory "$T/bu-traj.xyz" >/dev/null 2>&1
+if /usr/bin/python3 - "$T/bu.sdf" "$T/bu-traj.xyz" <<'PY'
+import math, sys
+import numpy as np
+def dihedral(p):
+    b1, b2, b3 = p[1] - p[0], p[2] - p[1], p[3] - p[2]
+    n1, n2 = np.cross(b1, b2), np.cross(b2, b3)
+    return math.degrees(math.atan2(np.linalg.norm(b2) * b1 @ n2, n1 @ n2))
+l = open(sys.argv[1]).read().split("\n")
+n = int(l[3][:3])
+start = np.array([[float(v[k:k + 10]) for k in (0, 10, 20)] for v in l[4:4 + n]])
+frames, t = [], open(sys.argv[2]).read().split("\n")
+i = 0
+while i < len(t) and t[i].strip():
+    frames.append(np.array([[float(v) for v in r.split()[1:4]] for r in t[i + 2:i + 2 + n]]))
+    i += 2 + n
+assert len(frames) == 4, len(frames)  # --max-steps 1: two frames per angle
+assert abs(dihedral(start[:4]) - -130) > 90, "the start should lie far from the first angle"
+for f, target in ((frames[0], -130), (frames[2], 110)):
+    assert abs(dihedral(f[:4]) - target) < 1e-4, (dihedral(f[:4]), target)
+# the first frame is the start turned: every bond length of the carbons kept
+for a, b in ((0, 1), (1, 2), (2, 3)):
+    assert abs(np.linalg.norm(frames[0][a] - frames[0][b]) - np.linalg.norm(start[a] - start[b])) < 1e-4
+PY
+then ok "scan: each angle starts at its target, the side turned rigidly"; else not_ok "scan: each angle starts at its target"; fi
+
 check_fails "scan atom out of range" 3 "--scan 1,2,3,9: restraints: atom 9 is out of range (1..4)" \
   "$NADIR" optimize "$T/t.xyz" --potential-command "$POT" --scan 1,2,3,9
 check_fails "frozen atom out of range" 3 "--frozen '1,7': atom 7 is outside 1..4" \
