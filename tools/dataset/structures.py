@@ -430,7 +430,7 @@ def perceive_bonds(els, xyz):
     r = np.array([COVALENT.get(e, 0.8) for e in els])
     d = np.linalg.norm(xyz[:, None, :] - xyz[None, :, :], axis=2)
     near = (d < 1.2 * (r[:, None] + r[None, :])) & ~np.eye(len(els), dtype=bool)
-    return [list(np.nonzero(row)[0]) for row in near]
+    return [[int(j) for j in np.nonzero(row)[0]] for row in near]
 
 
 def cmd_rotors(args):
@@ -446,8 +446,7 @@ def cmd_rotors(args):
     rotors = dropped = 0
     for title, els, xyz in read_xyz(src):
         key = title.split()[0] if title else "unnamed"
-        adj = adjacency(len(els), [(i, j, 1) for i, nb in enumerate(perceive_bonds(els, xyz))
-                                   for j in nb if i < j])
+        adj = perceive_bonds(els, xyz)
         far = topo_distances(adj, len(els), cap=3) >= 3
         for x, nb in enumerate(adj):
             hs = [j for j in nb if els[j] == "H"]
