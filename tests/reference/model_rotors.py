@@ -81,8 +81,9 @@ def main():
                 "\n".join("%5.0f  %9.2f  %5.2f" % t for t in zip(angles, ref, mod))
             tap(len(ref) == last // 30 + 1 and max(ref) > 0.5,
                 "%s: the reference's scan has all %d angles and a barrier" % (name, last // 30 + 1), table)
-            tap(mae <= 1.0 and worst <= 2.0, "%s: model profile within 1.0 kcal/mol on average, 2.0 at worst"
-                % name, "mean %.2f, worst %.2f" % (mae, worst), todo)
+            tap(len(mod) == len(ref) and mae <= 1.0 and worst <= 2.0,
+                "%s: model profile within 1.0 kcal/mol on average, 2.0 at worst" % name,
+                "%d of %d angles; mean %.2f, worst %.2f" % (len(mod), len(ref), mae, worst), todo)
             tap(abs(max(mod) - max(ref)) <= 0.25 * max(ref), "%s: model barrier within 25%% of the reference's"
                 % name, "model %.2f, reference %.2f kcal/mol" % (max(mod), max(ref)), todo)
     finally:
