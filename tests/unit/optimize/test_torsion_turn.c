@@ -13,16 +13,33 @@
 #include <stdlib.h>
 #include <string.h>
 
-static void build(const char *name, nd_molecule *m, int **start, int **adj)
+/* A test molecule, its neighbour lists and room for a side's marks. */
+typedef struct graph {
+    nd_molecule m;
+    int *start, *adj;
+    unsigned char *mv;
+} graph;
+
+static void build(const char *name, graph *g)
 {
     nd_error err;
     int i = 0;
     while (i < nd_test_molecule_count() && strcmp(nd_test_molecule_name(i), name) != 0)
         i++;
     assert_true(i < nd_test_molecule_count());
-    nd_molecule_init(m);
-    assert_int_equal(nd_test_molecule_build(i, m, &err), ND_OK);
-    assert_int_equal(nd_molecule_neighbours(m, start, adj, &err), ND_OK);
+    nd_molecule_init(&g->m);
+    assert_int_equal(nd_test_molecule_build(i, &g->m, &err), ND_OK);
+    assert_int_equal(nd_molecule_neighbours(&g->m, &g->start, &g->adj, &err), ND_OK);
+    g->mv = calloc((size_t)g->m.natoms, 1);
+    assert_non_null(g->mv);
+}
+
+static void release(graph *g)
+{
+    free(g->mv);
+    free(g->start);
+    free(g->adj);
+    nd_molecule_free(&g->m);
 }
 
 static double torsion_deg(const double *x, int i, int j, int k, int l)
@@ -43,55 +60,47 @@ static double dist(const double *x, int a, int b)
 static void test_side_chain(void **state)
 {
     (void)state;
-    nd_molecule m;
-    int *start, *adj;
-    build("hexane", &m, &start, &adj);
-    unsigned char *mv = calloc((size_t)m.natoms, 1);
-    int sign = nd_torsion_side(m.natoms, start, adj, 2, 1, mv);
+    graph g;
+    build("hexane", &g);
+    int n = g.m.natoms;
+    unsigned char *mv = g.mv;
+    int sign = nd_torsion_side(n, g.start, g.adj, 2, 1, mv);
     assert_int_equal(sign, 1); /* k = C1's side is the smaller */
     int count = 0;
-    for (int a = 0; a < m.natoms; a++)
+    for (int a = 0; a < n; a++)
         count += mv[a];
     assert_int_equal(count, 2 + 5);
     assert_true(mv[0] && mv[1] && !mv[2] && !mv[5]);
-    assert_int_equal(nd_torsion_side(m.natoms, start, adj, 1, 2, mv), -1); /* the same side, now j's */
+    assert_int_equal(nd_torsion_side(n, g.start, g.adj, 1, 2, mv), -1); /* the same side, now j's */
     assert_true(mv[0] && mv[1] && !mv[2]);
-    assert_int_equal(nd_torsion_side(m.natoms, start, adj, 0, 2, mv), 0); /* not bonded */
-    for (int a = 0; a < m.natoms; a++)
+    assert_int_equal(nd_torsion_side(n, g.start, g.adj, 0, 2, mv), 0); /* not bonded */
+    for (int a = 0; a < n; a++)
         assert_int_equal(mv[a], 0);
-    free(mv);
-    free(start);
-    free(adj);
-    nd_molecule_free(&m);
+    release(&g);
 }
 
 static void test_ring_refused(void **state)
 {
     (void)state;
-    nd_molecule m;
-    int *start, *adj;
-    build("cyclohexane", &m, &start, &adj);
-    unsigned char *mv = calloc((size_t)m.natoms, 1);
-    assert_int_equal(nd_torsion_side(m.natoms, start, adj, 0, 1, mv), 0);
-    for (int a = 0; a < m.natoms; a++)
-        assert_int_equal(mv[a], 0);
-    free(mv);
-    free(start);
-    free(adj);
-    nd_molecule_free(&m);
+    graph g;
+    build("cyclohexane", &g);
+    assert_int_equal(nd_torsion_side(g.m.natoms, g.start, g.adj, 0, 1, g.mv), 0);
+    for (int a = 0; a < g.m.natoms; a++)
+        assert_int_equal(g.mv[a], 0);
+    release(&g);
 }
 
 /* Turns torsion I-J-K-L of molecule name to a series of targets, moving
  * whichever side nd_torsion_side picks, from a perturbed start. */
 static void turn_to_targets(const char *name, int i, int j, int k, int l)
 {
-    nd_molecule m;
-    int *start, *adj;
-    build(name, &m, &start, &adj);
+    graph g;
+    build(name, &g);
+    nd_molecule m = g.m;
     int n = m.natoms;
     nd_test_perturb(n, m.xyz, 0.05, 4242);
-    unsigned char *mv = calloc((size_t)n, 1);
-    int sign = nd_torsion_side(n, start, adj, j, k, mv);
+    unsigned char *mv = g.mv;
+    int sign = nd_torsion_side(n, g.start, g.adj, j, k, mv);
     assert_true(sign != 0);
     double *x0 = malloc(sizeof(double) * 3 * (size_t)n);
     memcpy(x0, m.xyz, sizeof(double) * 3 * (size_t)n);
@@ -112,10 +121,7 @@ static void turn_to_targets(const char *name, int i, int j, int k, int l)
             }
     }
     free(x0);
-    free(mv);
-    free(start);
-    free(adj);
-    nd_molecule_free(&m);
+    release(&g);
 }
 
 static void test_turn_chain(void **state)
@@ -129,17 +135,14 @@ static void test_turn_chain(void **state)
 static void test_turn_hydroxyl(void **state)
 {
     (void)state;
-    nd_molecule m;
-    int *start, *adj;
-    build("ethanol", &m, &start, &adj);
+    graph g;
+    build("ethanol", &g);
     int h = -1;
-    for (int p = start[2]; p < start[3]; p++)
-        if (m.z[adj[p]] == 1)
-            h = adj[p];
+    for (int p = g.start[2]; p < g.start[3]; p++)
+        if (g.m.z[g.adj[p]] == 1)
+            h = g.adj[p];
     assert_true(h >= 0);
-    free(start);
-    free(adj);
-    nd_molecule_free(&m);
+    release(&g);
     turn_to_targets("ethanol", 0, 1, 2, h);
 }
 
